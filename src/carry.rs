@@ -1,0 +1,189 @@
+//! The carry pass: exact 192-bit convolution coefficients to limbs in the
+//! operands' radix, in parallel chunks with a sequential fix-up.
+
+use crate::radix::{Radix, DEC_BASE};
+use rayon::prelude::*;
+
+/// A 192-bit unsigned number, least significant word first.
+pub type U192 = [u64; 3];
+
+/// `a + b` for 192-bit numbers; the callers' sums stay far below 2^192.
+#[inline(always)]
+pub fn add192(a: U192, b: U192) -> U192 {
+    let (w0, c0) = a[0].overflowing_add(b[0]);
+    let (w1, c1) = a[1].overflowing_add(b[1]);
+    let (w1, c2) = w1.overflowing_add(c0 as u64);
+    let w2 = a[2]
+        .wrapping_add(b[2])
+        .wrapping_add(c1 as u64 + c2 as u64);
+    [w0, w1, w2]
+}
+
+/// `floor((2^128 - 1) / d) - 2^64` for a normalized divisor (top bit set):
+/// the reciprocal of the two-by-one division by an invariant integer
+/// (Möller and Granlund, "Improved division by invariant integers", 2011).
+const fn reciprocal(d: u64) -> u64 {
+    assert!(d >> 63 == 1);
+    (u128::MAX / d as u128 - (1u128 << 64)) as u64
+}
+
+const DEC_RECIPROCAL: u64 = reciprocal(DEC_BASE);
+
+/// `(u1 * 2^64 + u0) / d` and the remainder, for `u1 < d`, `d` normalized.
+#[inline(always)]
+fn div_2by1(u1: u64, u0: u64, d: u64, v: u64) -> (u64, u64) {
+    debug_assert!(u1 < d);
+    let q = (v as u128 * u1 as u128).wrapping_add(((u1 as u128) << 64) | u0 as u128);
+    let mut q1 = ((q >> 64) as u64).wrapping_add(1);
+    let q0 = q as u64;
+    let mut r = u0.wrapping_sub(q1.wrapping_mul(d));
+    if r > q0 {
+        q1 = q1.wrapping_sub(1);
+        r = r.wrapping_add(d);
+    }
+    if r >= d {
+        q1 += 1;
+        r -= d;
+    }
+    (q1, r)
+}
+
+/// Splits `x` into `(x div base, x mod base)` for the radix's limb base.
+#[inline(always)]
+pub fn split_limb(x: U192, radix: Radix) -> (U192, u64) {
+    match radix {
+        Radix::Binary => ([x[1], x[2], 0], x[0]),
+        Radix::Decimal => {
+            debug_assert!(x[2] < DEC_BASE);
+            let (q1, r1) = div_2by1(x[2], x[1], DEC_BASE, DEC_RECIPROCAL);
+            let (q0, r0) = div_2by1(r1, x[0], DEC_BASE, DEC_RECIPROCAL);
+            ([q0, q1, 0], r0)
+        }
+    }
+}
+
+/// Turns `coefficients` (`coeff(k)` for `k < count`) into the limbs of
+/// their sum `sum c_k * base^k`, written to `out` (`out.len() >= count + 1`
+/// words; the rest is zero-filled). Panics if the value does not fit `out`,
+/// which would mean a wrong plan.
+pub fn propagate<F>(count: usize, coeff: F, radix: Radix, out: &mut [u64])
+where
+    F: Fn(usize, &mut [U192]) + Sync,
+{
+    assert!(out.len() > count);
+    let chunk = (count / (4 * rayon::current_num_threads()).max(1)).clamp(1 << 12, 1 << 20);
+    let (body, _) = out.split_at_mut(count);
+    // First pass: each chunk with zero carry in, returning its carry out.
+    let carries: Vec<U192> = body
+        .par_chunks_mut(chunk)
+        .enumerate()
+        .map(|(ci, digits)| {
+            let first = ci * chunk;
+            let mut coeffs = vec![[0u64; 3]; digits.len()];
+            coeff(first, &mut coeffs);
+            let mut carry = [0u64; 3];
+            for (d, c) in digits.iter_mut().zip(&coeffs) {
+                let (q, r) = split_limb(add192(*c, carry), radix);
+                *d = r;
+                carry = q;
+            }
+            carry
+        })
+        .collect();
+    // Fix-up: feed each chunk's carry into the next; ripples are short except
+    // through runs of maximal limbs, and those are handled the same way.
+    let mut carry = [0u64; 3];
+    for (ci, chunk_carry) in carries.iter().enumerate() {
+        let start = ci * chunk;
+        let end = (start + chunk).min(count);
+        let mut k = start;
+        while carry != [0, 0, 0] && k < end {
+            let (q, r) = split_limb(add192([out[k], 0, 0], carry), radix);
+            out[k] = r;
+            carry = q;
+            k += 1;
+        }
+        carry = add192(carry, *chunk_carry);
+    }
+    let mut k = count;
+    while carry != [0, 0, 0] {
+        assert!(k < out.len(), "product overflows its limb count");
+        let (q, r) = split_limb(carry, radix);
+        out[k] = r;
+        carry = q;
+        k += 1;
+    }
+    out[k..].fill(0);
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn decimal_split_matches_u128_division() {
+        let cases: [u128; 6] = [
+            0,
+            1,
+            DEC_BASE as u128 - 1,
+            DEC_BASE as u128,
+            u128::MAX / 3,
+            (DEC_BASE as u128) * (DEC_BASE as u128) - 1,
+        ];
+        for &x in &cases {
+            let (q, r) = split_limb([x as u64, (x >> 64) as u64, 0], Radix::Decimal);
+            let qq = x / DEC_BASE as u128;
+            assert_eq!(r as u128, x % DEC_BASE as u128);
+            assert_eq!(q, [qq as u64, (qq >> 64) as u64, 0]);
+        }
+        // with a third word: 2^128 * 5 + 12345
+        let (q, r) = split_limb([12345, 0, 5], Radix::Decimal);
+        let n = num_bigint::BigUint::from(5u32) << 128usize;
+        let n = n + 12345u32;
+        let base = num_bigint::BigUint::from(DEC_BASE);
+        assert_eq!(num_bigint::BigUint::from(r), &n % &base);
+        let qb = num_bigint::BigUint::from_slice(&[
+            q[0] as u32,
+            (q[0] >> 32) as u32,
+            q[1] as u32,
+            (q[1] >> 32) as u32,
+        ]);
+        assert_eq!(qb, n / base);
+    }
+
+    #[test]
+    fn propagation_through_long_runs_of_maximal_limbs() {
+        // coefficients: base-1 everywhere, then one 1 at the bottom: carries
+        // ripple across every chunk boundary.
+        for radix in [Radix::Binary, Radix::Decimal] {
+            let count = 50_000;
+            let max = radix.max_limb();
+            let mut out = vec![0u64; count + 2];
+            propagate(
+                count,
+                |_, dst| dst.fill([max, 0, 0]),
+                radix,
+                &mut out,
+            );
+            assert!(out[..count].iter().all(|&d| d == max));
+            // then add 1 at position 0 via a second coefficient set
+            let mut out2 = vec![0u64; count + 2];
+            propagate(
+                count,
+                |first, dst| {
+                    for (i, d) in dst.iter_mut().enumerate() {
+                        *d = if first + i == 0 {
+                            add192([max, 0, 0], [1, 0, 0])
+                        } else {
+                            [max, 0, 0]
+                        };
+                    }
+                },
+                radix,
+                &mut out2,
+            );
+            assert!(out2[..count].iter().all(|&d| d == 0));
+            assert_eq!(out2[count], 1);
+        }
+    }
+}

@@ -1,0 +1,168 @@
+//! The executor: carries out a [`Plan`] on two operands given as limb
+//! sources, and the convenience entry points on limb slices.
+
+use crate::carry::{self, U192};
+use crate::fourstep::FourStep;
+use crate::plan::{self, Algorithm, Force, Plan, Request};
+use crate::radix::Radix;
+use crate::schoolbook;
+use crate::storage::RamStore;
+use crate::Result;
+
+/// A source of limbs: `fill_limbs(first, out)` writes limbs
+/// `first..first + out.len()` into `out`, zeros past the operand's end.
+pub trait LimbSource: Sync {
+    /// Fills `out` with limbs starting at `first`.
+    fn fill_limbs(&self, first: usize, out: &mut [u64]);
+}
+
+impl LimbSource for [u64] {
+    fn fill_limbs(&self, first: usize, out: &mut [u64]) {
+        let have = self.len().saturating_sub(first).min(out.len());
+        out[..have].copy_from_slice(&self[first..first + have]);
+        out[have..].fill(0);
+    }
+}
+
+impl LimbSource for Vec<u64> {
+    fn fill_limbs(&self, first: usize, out: &mut [u64]) {
+        self.as_slice().fill_limbs(first, out)
+    }
+}
+
+fn read_all<L: LimbSource + ?Sized>(src: &L, len: usize) -> Vec<u64> {
+    let mut v = vec![0u64; len];
+    src.fill_limbs(0, &mut v);
+    v
+}
+
+/// Carries out `plan` on `a` and `b` (ignored for a square) and returns the
+/// product's limbs, most significant zero limbs removed (empty for zero).
+pub fn execute<A, B>(plan: &Plan, a: &A, b: &B) -> Result<Vec<u64>>
+where
+    A: LimbSource + ?Sized,
+    B: LimbSource + ?Sized,
+{
+    let (la, lb) = (plan.a_limbs, plan.b_limbs);
+    let mut out = match plan.algorithm {
+        Algorithm::Zero => Vec::new(),
+        Algorithm::Schoolbook => {
+            let av = read_all(a, la);
+            let bv = if plan.square { av.clone() } else { read_all(b, lb) };
+            let coeffs = schoolbook::convolution(&av, &bv);
+            let mut out = vec![0u64; plan.product_limbs];
+            carry::propagate(
+                coeffs.len(),
+                |first, dst: &mut [U192]| dst.copy_from_slice(&coeffs[first..first + dst.len()]),
+                plan.radix,
+                &mut out,
+            );
+            out
+        }
+        Algorithm::Ntt { shape } => {
+            let fs = FourStep::new(shape);
+            let n = shape.len();
+            let stores_a: Vec<RamStore> = (0..3).map(|_| RamStore::zeroed(n)).collect();
+            fs.forward_columns(&|f, o: &mut [u64]| a.fill_limbs(f, o), la, &stores_a)?;
+            if plan.square {
+                fs.rows(&stores_a, None)?;
+            } else {
+                let stores_b: Vec<RamStore> = (0..3).map(|_| RamStore::zeroed(n)).collect();
+                fs.forward_columns(&|f, o: &mut [u64]| b.fill_limbs(f, o), lb, &stores_b)?;
+                fs.rows(&stores_a, Some(&stores_b))?;
+            }
+            let count = la + lb - 1;
+            fs.inverse_columns(&stores_a, count)?;
+            let mut out = vec![0u64; plan.product_limbs];
+            let failure = std::sync::Mutex::new(None);
+            carry::propagate(
+                count,
+                |first, dst: &mut [U192]| {
+                    let mut tmp = Vec::new();
+                    if let Err(e) = FourStep::read_coefficients(&stores_a, first, dst, &mut tmp) {
+                        *failure.lock().unwrap() = Some(e);
+                    }
+                },
+                plan.radix,
+                &mut out,
+            );
+            if let Some(e) = failure.into_inner().unwrap() {
+                return Err(e);
+            }
+            out
+        }
+    };
+    while out.last() == Some(&0) {
+        out.pop();
+    }
+    Ok(out)
+}
+
+fn trimmed(x: &[u64]) -> &[u64] {
+    let len = x.iter().rposition(|&w| w != 0).map_or(0, |i| i + 1);
+    &x[..len]
+}
+
+/// The product of two little-endian limb slices in `radix`, trimmed. Inputs
+/// may carry leading zero limbs; every limb must be at most
+/// `radix.max_limb()`. Runs on rayon's current thread pool.
+pub fn multiply(a: &[u64], b: &[u64], radix: Radix) -> Vec<u64> {
+    multiply_forced(a, b, radix, Force::Auto)
+}
+
+/// [`multiply`] with the algorithm forced (for tests and benchmarks).
+pub fn multiply_forced(a: &[u64], b: &[u64], radix: Radix, force: Force) -> Vec<u64> {
+    let (a, b) = (trimmed(a), trimmed(b));
+    debug_assert!(a.iter().chain(b).all(|&x| x <= radix.max_limb()));
+    let req = Request {
+        a_limbs: a.len(),
+        b_limbs: b.len(),
+        radix,
+        square: a == b,
+        threads: rayon::current_num_threads(),
+        force,
+    };
+    let plan = plan::plan(&req).expect("in-memory products of slices always plan");
+    execute(&plan, a, b).expect("RAM stores do not fail")
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use crate::test_oracles::seeded_words;
+    use num_bigint::BigUint;
+
+    fn big(limbs: &[u64]) -> BigUint {
+        let words: Vec<u32> = limbs.iter().flat_map(|w| [*w as u32, (w >> 32) as u32]).collect();
+        BigUint::from_slice(&words)
+    }
+
+    #[test]
+    fn every_path_matches_the_reference_on_binary_limbs() {
+        for (la, lb) in [(1, 1), (3, 70), (64, 64), (1000, 999), (4097, 33), (20_000, 20_000)] {
+            let a = seeded_words(la, la as u64 + 5);
+            let b = seeded_words(lb, lb as u64 + 11);
+            let expect = big(&a) * big(&b);
+            for force in [Force::Schoolbook, Force::Ntt, Force::Auto] {
+                let c = multiply_forced(&a, &b, Radix::Binary, force);
+                assert_eq!(big(&c), expect, "{la}x{lb} {force:?}");
+            }
+            let sq = multiply_forced(&a, &a, Radix::Binary, Force::Ntt);
+            assert_eq!(big(&sq), big(&a) * big(&a), "square {la}");
+        }
+    }
+
+    #[test]
+    fn decimal_paths_agree_with_each_other_on_all_nines() {
+        let nines = vec![crate::radix::DEC_BASE - 1; 3000];
+        let s = multiply_forced(&nines, &nines, Radix::Decimal, Force::Schoolbook);
+        let n = multiply_forced(&nines, &nines, Radix::Decimal, Force::Ntt);
+        assert_eq!(s, n);
+        // (10^k - 1)^2 = 10^2k - 2*10^k + 1: limbs 1, 0.., then 10^19-2, 9..9
+        assert_eq!(n[0], 1);
+        assert!(n[1..3000].iter().all(|&x| x == 0));
+        assert_eq!(n[3000], crate::radix::DEC_BASE - 2);
+        assert!(n[3001..].iter().all(|&x| x == crate::radix::DEC_BASE - 1));
+        assert_eq!(n.len(), 6000);
+    }
+}

@@ -1,0 +1,294 @@
+//! The four-step NTT convolution over [`Store`]s.
+//!
+//! A transform of length `N = R * C` views the data as `R` rows of `C`
+//! words (index `C * n1 + n2`). Forward: length-`R` transforms down each
+//! column, a twiddle `w_N^(k1 n2)`, length-`C` transforms along each row.
+//! The result is left in the transposed, bit-reversed order, which is fine
+//! for a convolution: both operands share it, the pointwise product does not
+//! care, and the inverse undoes the steps in reverse, so no transpose pass is
+//! ever run. Three passes over the data:
+//!
+//! 1. **column pass** per operand: columns are read in blocks of `lanes`
+//!    adjacent columns straight from the operand's limbs, reduced modulo each
+//!    prime, transformed, written to the operand's stores;
+//! 2. **row pass**: per row and prime, twiddle and transform the rows of
+//!    both operands, multiply pointwise, inverse-transform, twiddle back,
+//!    and write over the first operand's row;
+//! 3. **inverse column pass**: inverse column transforms, then the CRT turns
+//!    the three residues of each coefficient into its exact 192-bit value,
+//!    written in place as (low, middle, high) words across the three stores.
+//!
+//! Each pass is parallel over blocks with rayon; blocks are independent.
+
+use crate::arith::primes::{NttPrime, PRIMES, PRIME_COUNT};
+use crate::arith::Modulus;
+use crate::carry::U192;
+use crate::crt::Crt;
+use crate::ntt::{self, bit_reverse, Twiddles};
+use crate::storage::Store;
+use crate::{Error, Result};
+use rayon::prelude::*;
+use serde::{Deserialize, Serialize};
+
+/// The shape of a four-step transform.
+#[derive(Clone, Copy, Debug, PartialEq, Eq, Serialize, Deserialize)]
+pub struct Shape {
+    /// Rows `R`: the length of the column transforms.
+    pub rows: usize,
+    /// Columns `C`: the length of the row transforms.
+    pub cols: usize,
+    /// Adjacent columns transformed together in the column passes.
+    pub lanes: usize,
+}
+
+impl Shape {
+    /// The transform length `R * C`.
+    pub fn len(&self) -> usize {
+        self.rows * self.cols
+    }
+
+    /// Never true for a valid shape.
+    pub fn is_empty(&self) -> bool {
+        self.len() == 0
+    }
+}
+
+/// Tables of one prime for one shape.
+struct PrimeTables {
+    modulus: Modulus,
+    col: Twiddles,
+    row: Twiddles,
+    /// `w_N^(k1)` in Montgomery form for the row at position `i`, where
+    /// `k1 = bitrev(i)` is the frequency the column transform left there.
+    row_step_fwd: Vec<u64>,
+    /// `w_N^(-k1)` likewise.
+    row_step_inv: Vec<u64>,
+}
+
+impl PrimeTables {
+    fn new(prime: &NttPrime, shape: Shape) -> Self {
+        let m = prime.modulus;
+        let n = shape.len() as u64;
+        let w = prime.root_of_unity(n);
+        let wi = m.inv(w);
+        let bits = shape.rows.trailing_zeros();
+        let (mut fwd, mut inv) = (vec![0; shape.rows], vec![0; shape.rows]);
+        for i in 0..shape.rows {
+            let k1 = bit_reverse(i, bits) as u64;
+            fwd[i] = m.to_mont(m.pow(w, k1));
+            inv[i] = m.to_mont(m.pow(wi, k1));
+        }
+        PrimeTables {
+            modulus: m,
+            col: Twiddles::new(prime, shape.rows),
+            row: Twiddles::new(prime, shape.cols),
+            row_step_fwd: fwd,
+            row_step_inv: inv,
+        }
+    }
+}
+
+/// A prepared four-step convolution of one shape.
+pub struct FourStep {
+    shape: Shape,
+    tables: Vec<PrimeTables>,
+    crt: Crt,
+}
+
+/// Fills `out` with `w^j` (Montgomery form) for `j = 0, 1, ...`, using eight
+/// independent chains so the multiplications overlap.
+fn powers_mont(out: &mut [u64], w: u64, m: &Modulus) {
+    let mut x = m.mont_one;
+    let head = out.len().min(8);
+    for o in out[..head].iter_mut() {
+        *o = x;
+        x = m.mont_mul(x, w);
+    }
+    // x is now w^8
+    for j in 8..out.len() {
+        out[j] = m.mont_mul(out[j - 8], x);
+    }
+}
+
+/// Multiplies `row` (values below `4p`) by `tw` (Montgomery form), fully
+/// reducing it.
+fn twiddle(row: &mut [u64], tw: &[u64], m: &Modulus) {
+    for (x, t) in row.iter_mut().zip(tw) {
+        *x = m.mont_mul(*x, *t);
+    }
+}
+
+/// Per-thread buffers of the row pass.
+struct RowBuffers {
+    a: Vec<u64>,
+    b: Vec<u64>,
+    tw: Vec<u64>,
+}
+
+impl FourStep {
+    /// Prepares tables for `shape` (powers of two, `lanes` dividing `cols`).
+    pub fn new(shape: Shape) -> Self {
+        assert!(shape.rows.is_power_of_two() && shape.cols.is_power_of_two());
+        assert!(shape.lanes >= 1 && shape.cols % shape.lanes == 0);
+        let tables: Vec<PrimeTables> = PRIMES.iter().map(|p| PrimeTables::new(p, shape)).collect();
+        // The inverse leaves N * c * 2^-64 (the pointwise Montgomery product
+        // drops one 2^64); the CRT divides that scale out.
+        let scale: Vec<u64> = tables
+            .iter()
+            .map(|t| {
+                let m = t.modulus;
+                m.mul(shape.len() as u64 % m.p, m.inv(m.mont_one))
+            })
+            .collect();
+        FourStep {
+            shape,
+            tables,
+            crt: Crt::new([scale[0], scale[1], scale[2]]),
+        }
+    }
+
+    /// The shape this convolution was prepared for.
+    pub fn shape(&self) -> Shape {
+        self.shape
+    }
+
+    /// Column pass: reads limbs `0..len` through `limbs(first, out)` (which
+    /// fills `out` with limbs `first..first + out.len()`, zeros past the end)
+    /// and leaves the column transforms in `stores` (one per prime).
+    pub fn forward_columns<S, L>(&self, limbs: &L, len: usize, stores: &[S]) -> Result<()>
+    where
+        S: Store,
+        L: Fn(usize, &mut [u64]) + Sync,
+    {
+        let Shape { rows, cols, lanes } = self.shape;
+        (0..cols / lanes).into_par_iter().try_for_each_init(
+            || (vec![0u64; rows * lanes], vec![0u64; rows * lanes]),
+            |(raw, buf), block| {
+                let c0 = block * lanes;
+                for (n1, seg) in raw.chunks_exact_mut(lanes).enumerate() {
+                    let start = cols * n1 + c0;
+                    if start < len {
+                        limbs(start, seg);
+                    } else {
+                        seg.fill(0);
+                    }
+                }
+                for (t, store) in self.tables.iter().zip(stores) {
+                    for (b, r) in buf.iter_mut().zip(raw.iter()) {
+                        *b = t.modulus.reduce_lazy(*r);
+                    }
+                    ntt::forward_lanes(buf, lanes, &t.col, &t.modulus);
+                    for (n1, seg) in buf.chunks_exact(lanes).enumerate() {
+                        store.write(cols * n1 + c0, seg)?;
+                    }
+                }
+                Ok(())
+            },
+        )
+    }
+
+    /// Row pass: transforms the rows of both operands, multiplies them
+    /// pointwise and inverse-transforms the product into `a`. With `b` as
+    /// `None` the operand is squared and its second transform skipped.
+    pub fn rows<S: Store>(&self, a: &[S], b: Option<&[S]>) -> Result<()> {
+        let Shape { rows, cols, .. } = self.shape;
+        (0..rows).into_par_iter().try_for_each_init(
+            || RowBuffers {
+                a: vec![0; cols],
+                b: vec![0; cols],
+                tw: vec![0; cols],
+            },
+            |buf, i| {
+                for (k, t) in self.tables.iter().enumerate() {
+                    let m = &t.modulus;
+                    let start = i * cols;
+                    a[k].read(start, &mut buf.a)?;
+                    powers_mont(&mut buf.tw, t.row_step_fwd[i], m);
+                    twiddle(&mut buf.a, &buf.tw, m);
+                    ntt::forward(&mut buf.a, &t.row, m);
+                    match b {
+                        Some(b) => {
+                            b[k].read(start, &mut buf.b)?;
+                            twiddle(&mut buf.b, &buf.tw, m);
+                            ntt::forward(&mut buf.b, &t.row, m);
+                            for (x, y) in buf.a.iter_mut().zip(&buf.b) {
+                                *x = m.mont_mul(m.reduce_2p(*x), *y);
+                            }
+                        }
+                        None => {
+                            for x in buf.a.iter_mut() {
+                                *x = m.mont_mul(m.reduce_2p(*x), *x);
+                            }
+                        }
+                    }
+                    ntt::inverse(&mut buf.a, &t.row, m);
+                    powers_mont(&mut buf.tw, t.row_step_inv[i], m);
+                    twiddle(&mut buf.a, &buf.tw, m);
+                    a[k].write(start, &buf.a)?;
+                }
+                Ok(())
+            },
+        )
+    }
+
+    /// Inverse column pass with the CRT: afterwards word `j` of stores 0, 1
+    /// and 2 holds the low, middle and high word of coefficient `j`.
+    /// Coefficients at `product_len` and beyond must come out zero; anything
+    /// else means corrupted data and is reported.
+    pub fn inverse_columns<S: Store>(&self, stores: &[S], product_len: usize) -> Result<()> {
+        let Shape { rows, cols, lanes } = self.shape;
+        (0..cols / lanes).into_par_iter().try_for_each_init(
+            || vec![vec![0u64; rows * lanes]; PRIME_COUNT],
+            |bufs, block| {
+                let c0 = block * lanes;
+                for ((t, store), buf) in self.tables.iter().zip(stores).zip(bufs.iter_mut()) {
+                    for (n1, seg) in buf.chunks_exact_mut(lanes).enumerate() {
+                        store.read(cols * n1 + c0, seg)?;
+                    }
+                    ntt::inverse_lanes(buf, lanes, &t.col, &t.modulus);
+                }
+                let (b0, rest) = bufs.split_at_mut(1);
+                let (b1, b2) = rest.split_at_mut(1);
+                for (e, ((x0, x1), x2)) in b0[0]
+                    .iter_mut()
+                    .zip(b1[0].iter_mut())
+                    .zip(b2[0].iter_mut())
+                    .enumerate()
+                {
+                    let v = self.crt.combine([*x0, *x1, *x2]);
+                    let pos = cols * (e / lanes) + c0 + e % lanes;
+                    if pos >= product_len && v != [0, 0, 0] {
+                        return Err(Error::Verify {
+                            what: format!(
+                                "transform consistency: coefficient {pos} beyond the product is not zero; \
+                                 memory or scratch data was corrupted"
+                            ),
+                        });
+                    }
+                    *x0 = v[0];
+                    *x1 = v[1];
+                    *x2 = v[2];
+                }
+                for (store, buf) in stores.iter().zip(bufs.iter()) {
+                    for (n1, seg) in buf.chunks_exact(lanes).enumerate() {
+                        store.write(cols * n1 + c0, seg)?;
+                    }
+                }
+                Ok(())
+            },
+        )
+    }
+
+    /// Reads coefficients `first..first + out.len()` left by
+    /// [`FourStep::inverse_columns`].
+    pub fn read_coefficients<S: Store>(stores: &[S], first: usize, out: &mut [U192], tmp: &mut Vec<u64>) -> Result<()> {
+        tmp.resize(out.len(), 0);
+        for (w, store) in stores.iter().enumerate().take(3) {
+            store.read(first, tmp)?;
+            for (o, x) in out.iter_mut().zip(tmp.iter()) {
+                o[w] = *x;
+            }
+        }
+        Ok(())
+    }
+}
