@@ -1,1 +1,59 @@
-fn main(){}
+//! Kernel micro-benchmarks: in-cache transforms (single vector and lanes),
+//! the row twiddle, the CRT and the decimal carry split.
+//!
+//! `cargo bench --bench kernels` (criterion). Divide a transform's time by
+//! `len/2 * log2(len)` for the cost of one butterfly.
+
+use criterion::{black_box, criterion_group, criterion_main, BenchmarkId, Criterion, Throughput};
+use vastmul::arith::primes::PRIMES;
+use vastmul::ntt::{self, Twiddles};
+
+fn words(n: usize, p: u64) -> Vec<u64> {
+    let mut x = 0x2545_f491_4f6c_dd1du64;
+    (0..n)
+        .map(|_| {
+            x ^= x << 13;
+            x ^= x >> 7;
+            x ^= x << 17;
+            x % p
+        })
+        .collect()
+}
+
+fn transforms(c: &mut Criterion) {
+    let pr = &PRIMES[0];
+    let m = pr.modulus;
+    let mut g = c.benchmark_group("ntt");
+    for log in [10u32, 12, 14] {
+        let n = 1usize << log;
+        let tw = Twiddles::new(pr, n);
+        let butterflies = (n / 2) as u64 * log as u64;
+        g.throughput(Throughput::Elements(butterflies));
+        let mut a = words(n, m.p);
+        g.bench_with_input(BenchmarkId::new("forward", n), &n, |bch, _| {
+            bch.iter(|| ntt::forward(black_box(&mut a), &tw, &m))
+        });
+        let mut a = words(n, m.p);
+        g.bench_with_input(BenchmarkId::new("inverse", n), &n, |bch, _| {
+            bch.iter(|| ntt::inverse(black_box(&mut a), &tw, &m))
+        });
+        let lanes = 16;
+        g.throughput(Throughput::Elements(butterflies * lanes as u64));
+        let mut a = words(n * lanes, m.p);
+        g.bench_with_input(BenchmarkId::new("forward_lanes16", n), &n, |bch, _| {
+            bch.iter(|| ntt::forward_lanes(black_box(&mut a), lanes, &tw, &m))
+        });
+        let mut a = words(n * lanes, m.p);
+        g.bench_with_input(BenchmarkId::new("inverse_lanes16", n), &n, |bch, _| {
+            bch.iter(|| ntt::inverse_lanes(black_box(&mut a), lanes, &tw, &m))
+        });
+    }
+    g.finish();
+}
+
+criterion_group! {
+    name = benches;
+    config = Criterion::default().sample_size(20).measurement_time(std::time::Duration::from_secs(2));
+    targets = transforms
+}
+criterion_main!(benches);

@@ -13,9 +13,7 @@ pub fn add192(a: U192, b: U192) -> U192 {
     let (w0, c0) = a[0].overflowing_add(b[0]);
     let (w1, c1) = a[1].overflowing_add(b[1]);
     let (w1, c2) = w1.overflowing_add(c0 as u64);
-    let w2 = a[2]
-        .wrapping_add(b[2])
-        .wrapping_add(c1 as u64 + c2 as u64);
+    let w2 = a[2].wrapping_add(b[2]).wrapping_add(c1 as u64 + c2 as u64);
     [w0, w1, w2]
 }
 
@@ -159,12 +157,7 @@ mod tests {
             let count = 50_000;
             let max = radix.max_limb();
             let mut out = vec![0u64; count + 2];
-            propagate(
-                count,
-                |_, dst| dst.fill([max, 0, 0]),
-                radix,
-                &mut out,
-            );
+            propagate(count, |_, dst| dst.fill([max, 0, 0]), radix, &mut out);
             assert!(out[..count].iter().all(|&d| d == max));
             // then add 1 at position 0 via a second coefficient set
             let mut out2 = vec![0u64; count + 2];

@@ -76,7 +76,10 @@ mod tests {
     use num_bigint::BigUint;
 
     fn to_big(x: U192) -> BigUint {
-        let words: Vec<u32> = x.iter().flat_map(|w| [*w as u32, (w >> 32) as u32]).collect();
+        let words: Vec<u32> = x
+            .iter()
+            .flat_map(|w| [*w as u32, (w >> 32) as u32])
+            .collect();
         BigUint::from_slice(&words)
     }
 
@@ -95,7 +98,9 @@ mod tests {
         ];
         let mut x = 0x1234_5678_9abc_def1u64;
         for _ in 0..200 {
-            x = x.wrapping_mul(6364136223846793005).wrapping_add(1442695040888963407);
+            x = x
+                .wrapping_mul(6364136223846793005)
+                .wrapping_add(1442695040888963407);
             let v = (BigUint::from(x) << 122usize) + BigUint::from(x.rotate_left(17));
             values.push(v % &p_big);
         }

@@ -48,7 +48,11 @@ where
         Algorithm::Zero => Vec::new(),
         Algorithm::Schoolbook => {
             let av = read_all(a, la);
-            let bv = if plan.square { av.clone() } else { read_all(b, lb) };
+            let bv = if plan.square {
+                av.clone()
+            } else {
+                read_all(b, lb)
+            };
             let coeffs = schoolbook::convolution(&av, &bv);
             let mut out = vec![0u64; plan.product_limbs];
             carry::propagate(
@@ -133,13 +137,23 @@ mod tests {
     use num_bigint::BigUint;
 
     fn big(limbs: &[u64]) -> BigUint {
-        let words: Vec<u32> = limbs.iter().flat_map(|w| [*w as u32, (w >> 32) as u32]).collect();
+        let words: Vec<u32> = limbs
+            .iter()
+            .flat_map(|w| [*w as u32, (w >> 32) as u32])
+            .collect();
         BigUint::from_slice(&words)
     }
 
     #[test]
     fn every_path_matches_the_reference_on_binary_limbs() {
-        for (la, lb) in [(1, 1), (3, 70), (64, 64), (1000, 999), (4097, 33), (20_000, 20_000)] {
+        for (la, lb) in [
+            (1, 1),
+            (3, 70),
+            (64, 64),
+            (1000, 999),
+            (4097, 33),
+            (20_000, 20_000),
+        ] {
             let a = seeded_words(la, la as u64 + 5);
             let b = seeded_words(lb, lb as u64 + 11);
             let expect = big(&a) * big(&b);

@@ -116,7 +116,11 @@ impl Error {
     }
 
     /// Shorthand for an [`Error::Output`].
-    pub fn output(path: impl Into<PathBuf>, what: impl Into<String>, fix: impl Into<String>) -> Self {
+    pub fn output(
+        path: impl Into<PathBuf>,
+        what: impl Into<String>,
+        fix: impl Into<String>,
+    ) -> Self {
         Error::Output {
             path: path.into(),
             what: what.into(),

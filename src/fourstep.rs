@@ -97,6 +97,7 @@ pub struct FourStep {
 
 /// Fills `out` with `w^j` (Montgomery form) for `j = 0, 1, ...`, using eight
 /// independent chains so the multiplications overlap.
+#[inline(never)]
 fn powers_mont(out: &mut [u64], w: u64, m: &Modulus) {
     let mut x = m.mont_one;
     let head = out.len().min(8);
@@ -112,6 +113,7 @@ fn powers_mont(out: &mut [u64], w: u64, m: &Modulus) {
 
 /// Multiplies `row` (values below `4p`) by `tw` (Montgomery form), fully
 /// reducing it.
+#[inline(never)]
 fn twiddle(row: &mut [u64], tw: &[u64], m: &Modulus) {
     for (x, t) in row.iter_mut().zip(tw) {
         *x = m.mont_mul(*x, *t);
@@ -281,7 +283,12 @@ impl FourStep {
 
     /// Reads coefficients `first..first + out.len()` left by
     /// [`FourStep::inverse_columns`].
-    pub fn read_coefficients<S: Store>(stores: &[S], first: usize, out: &mut [U192], tmp: &mut Vec<u64>) -> Result<()> {
+    pub fn read_coefficients<S: Store>(
+        stores: &[S],
+        first: usize,
+        out: &mut [U192],
+        tmp: &mut Vec<u64>,
+    ) -> Result<()> {
         tmp.resize(out.len(), 0);
         for (w, store) in stores.iter().enumerate().take(3) {
             store.read(first, tmp)?;

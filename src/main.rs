@@ -1,1 +1,268 @@
-fn main() {}
+//! The `vastmul` command line: argument parsing and glue. All the work is
+//! in the library; this file maps its typed errors to exit codes.
+
+use clap::{Parser, Subcommand, ValueEnum};
+use std::path::PathBuf;
+use std::process::ExitCode;
+use vastmul::error::exit;
+use vastmul::format::Format;
+use vastmul::job::{multiply_files, MulOptions};
+use vastmul::plan::Force;
+use vastmul::{Error, Radix};
+
+#[derive(Parser)]
+#[command(
+    name = "vastmul",
+    version,
+    about = "Exact products of enormous integers stored in files"
+)]
+struct Cli {
+    #[command(subcommand)]
+    command: Command,
+}
+
+#[derive(Clone, Copy, ValueEnum)]
+enum FormatArg {
+    Dec,
+    Hex,
+    Limbs,
+    Container,
+}
+
+impl From<FormatArg> for Format {
+    fn from(f: FormatArg) -> Self {
+        match f {
+            FormatArg::Dec => Format::Decimal,
+            FormatArg::Hex => Format::Hex,
+            FormatArg::Limbs => Format::Limbs,
+            FormatArg::Container => Format::Container,
+        }
+    }
+}
+
+#[derive(Clone, Copy, ValueEnum)]
+enum RadixArg {
+    Dec,
+    Hex,
+}
+
+#[derive(Clone, Copy, ValueEnum)]
+enum AlgorithmArg {
+    Auto,
+    Schoolbook,
+    Ntt,
+}
+
+#[derive(Subcommand)]
+enum Command {
+    /// Multiply two operand files into a product file.
+    #[command(after_help = "Example:\n  vastmul mul a.txt b.txt -o product.txt --threads 2")]
+    Mul {
+        /// First operand file.
+        a: PathBuf,
+        /// Second operand file (the same file squares the first).
+        b: PathBuf,
+        /// Product file; written atomically once complete.
+        #[arg(short, long)]
+        output: PathBuf,
+        /// Worker threads (default: every core).
+        #[arg(long)]
+        threads: Option<usize>,
+        /// Operand format (default: detected from each file's content).
+        #[arg(long, value_enum)]
+        in_format: Option<FormatArg>,
+        /// Product format (default: the first operand's format).
+        #[arg(long, value_enum)]
+        out_format: Option<FormatArg>,
+        /// Replace an existing output file.
+        #[arg(long)]
+        force: bool,
+        /// Force an algorithm (for benchmarks and tests).
+        #[arg(long, value_enum, default_value = "auto", hide = true)]
+        algorithm: AlgorithmArg,
+        /// Print a machine-readable report on stdout.
+        #[arg(long)]
+        json: bool,
+    },
+    /// Write a reproducible random operand.
+    #[command(after_help = "Example:\n  vastmul gen --digits 1000000 --seed 7 -o a.txt")]
+    Gen {
+        /// Number of digits (the leading one is never zero).
+        #[arg(long)]
+        digits: u64,
+        /// Seed; the same seed gives the same digits on any machine.
+        #[arg(long, default_value_t = 1)]
+        seed: u64,
+        /// Decimal or hexadecimal digits.
+        #[arg(long, value_enum, default_value = "dec")]
+        radix: RadixArg,
+        /// Output file.
+        #[arg(short, long)]
+        output: PathBuf,
+        /// Replace an existing output file.
+        #[arg(long)]
+        force: bool,
+        /// Worker threads (default: every core).
+        #[arg(long)]
+        threads: Option<usize>,
+    },
+    /// Show an operand's format, sign, size and BLAKE3.
+    #[command(after_help = "Example:\n  vastmul info product.txt")]
+    Info {
+        /// Operand file.
+        file: PathBuf,
+        /// Format (default: detected).
+        #[arg(long, value_enum)]
+        in_format: Option<FormatArg>,
+        /// Print JSON instead of text.
+        #[arg(long)]
+        json: bool,
+    },
+    /// Print the plan for a product without computing it.
+    #[command(after_help = "Example:\n  vastmul plan a.txt b.txt --json")]
+    Plan {
+        /// First operand file.
+        a: PathBuf,
+        /// Second operand file.
+        b: PathBuf,
+        /// Worker threads (default: every core).
+        #[arg(long)]
+        threads: Option<usize>,
+        /// Operand format (default: detected).
+        #[arg(long, value_enum)]
+        in_format: Option<FormatArg>,
+        /// Print JSON instead of text.
+        #[arg(long)]
+        json: bool,
+    },
+}
+
+fn default_threads() -> usize {
+    std::thread::available_parallelism().map_or(1, |n| n.get())
+}
+
+/// Builds the global thread pool once, refusing zero threads.
+fn set_threads(threads: Option<usize>) -> Result<usize, Error> {
+    let n = threads.unwrap_or_else(default_threads);
+    if n == 0 {
+        return Err(Error::usage(
+            "--threads 0: at least one thread is needed",
+            "omit --threads to use every core, or pass a positive number",
+        ));
+    }
+    // Only fails if a pool was built before, which this binary never does.
+    let _ = rayon::ThreadPoolBuilder::new()
+        .num_threads(n)
+        .build_global();
+    Ok(n)
+}
+
+fn run(cli: Cli) -> Result<(), Error> {
+    match cli.command {
+        Command::Mul {
+            a,
+            b,
+            output,
+            threads,
+            in_format,
+            out_format,
+            force,
+            algorithm,
+            json,
+        } => {
+            let threads = set_threads(threads)?;
+            let opts = MulOptions {
+                a,
+                b,
+                output,
+                in_format: in_format.map(Into::into),
+                out_format: out_format.map(Into::into),
+                force,
+                threads,
+                algorithm: match algorithm {
+                    AlgorithmArg::Auto => Force::Auto,
+                    AlgorithmArg::Schoolbook => Force::Schoolbook,
+                    AlgorithmArg::Ntt => Force::Ntt,
+                },
+            };
+            let report = multiply_files(&opts)?;
+            if json {
+                println!(
+                    "{}",
+                    serde_json::to_string_pretty(&report).expect("report serializes")
+                );
+            } else {
+                eprintln!(
+                    "wrote {} ({} limbs of radix {}) in {:.3} s: open {:.3} s, compute {:.3} s, write {:.3} s",
+                    opts.output.display(),
+                    report.product_limbs,
+                    report.plan.radix.name(),
+                    report.open_seconds + report.compute_seconds + report.write_seconds,
+                    report.open_seconds,
+                    report.compute_seconds,
+                    report.write_seconds
+                );
+            }
+        }
+        Command::Gen {
+            digits,
+            seed,
+            radix,
+            output,
+            force,
+            threads,
+        } => {
+            set_threads(threads)?;
+            let radix = match radix {
+                RadixArg::Dec => Radix::Decimal,
+                RadixArg::Hex => Radix::Binary,
+            };
+            vastmul::gen::generate(&output, digits, seed, radix, force)?;
+        }
+        Command::Info {
+            file,
+            in_format,
+            json,
+        } => {
+            let info = vastmul::info::info(&file, in_format.map(Into::into))?;
+            if json {
+                println!(
+                    "{}",
+                    serde_json::to_string_pretty(&info).expect("info serializes")
+                );
+            } else {
+                println!("{info}");
+            }
+        }
+        Command::Plan {
+            a,
+            b,
+            threads,
+            in_format,
+            json,
+        } => {
+            let threads = set_threads(threads)?;
+            let plan = vastmul::job::plan_files(&a, &b, in_format.map(Into::into), threads)?;
+            if json {
+                println!(
+                    "{}",
+                    serde_json::to_string_pretty(&plan).expect("plan serializes")
+                );
+            } else {
+                println!("{plan:#?}");
+            }
+        }
+    }
+    Ok(())
+}
+
+fn main() -> ExitCode {
+    let cli = Cli::parse();
+    match run(cli) {
+        Ok(()) => ExitCode::from(exit::OK as u8),
+        Err(e) => {
+            eprintln!("vastmul: error: {e}");
+            ExitCode::from(e.exit_code() as u8)
+        }
+    }
+}

@@ -200,8 +200,14 @@ mod tests {
     #[test]
     fn small_operands_use_schoolbook_and_large_ones_the_ntt() {
         assert_eq!(plan(&req(10, 10)).unwrap().algorithm, Algorithm::Schoolbook);
-        assert_eq!(plan(&req(1_000_000, 5)).unwrap().algorithm, Algorithm::Schoolbook);
-        assert!(matches!(plan(&req(100_000, 100_000)).unwrap().algorithm, Algorithm::Ntt { .. }));
+        assert_eq!(
+            plan(&req(1_000_000, 5)).unwrap().algorithm,
+            Algorithm::Schoolbook
+        );
+        assert!(matches!(
+            plan(&req(100_000, 100_000)).unwrap().algorithm,
+            Algorithm::Ntt { .. }
+        ));
         assert_eq!(plan(&req(0, 100)).unwrap().algorithm, Algorithm::Zero);
     }
 

@@ -51,10 +51,17 @@ mod tests {
             let mut a = seeded_words(la, la as u64);
             let b = seeded_words(lb, 77 + lb as u64);
             a[0] = u64::MAX;
-            assert_eq!(convolution(&a, &b), schoolbook_convolution(&a, &b), "{la}x{lb}");
+            assert_eq!(
+                convolution(&a, &b),
+                schoolbook_convolution(&a, &b),
+                "{la}x{lb}"
+            );
             let ones = vec![u64::MAX; la];
             let ones_b = vec![u64::MAX; lb];
-            assert_eq!(convolution(&ones, &ones_b), schoolbook_convolution(&ones, &ones_b));
+            assert_eq!(
+                convolution(&ones, &ones_b),
+                schoolbook_convolution(&ones, &ones_b)
+            );
         }
     }
 }

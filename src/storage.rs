@@ -51,7 +51,10 @@ impl RamStore {
 
     /// Copies the whole store out (for tests and small products).
     pub fn to_vec(&self) -> Vec<u64> {
-        self.words.iter().map(|w| w.load(Ordering::Relaxed)).collect()
+        self.words
+            .iter()
+            .map(|w| w.load(Ordering::Relaxed))
+            .collect()
     }
 }
 

@@ -226,7 +226,10 @@ mod tests {
     fn exactness_bound_is_tight_where_claimed() {
         assert!(coefficient_bound_holds(1 << 57, u64::MAX));
         assert!(!coefficient_bound_holds(1 << 58, u64::MAX));
-        assert!(coefficient_bound_holds(1 << 59, super::super::super::radix::DEC_BASE - 1));
+        assert!(coefficient_bound_holds(
+            1 << 59,
+            super::super::super::radix::DEC_BASE - 1
+        ));
         // log2 P is just below 186
         let p = prime_product();
         assert_eq!(64 - p[2].leading_zeros(), 186 - 128);

@@ -67,6 +67,7 @@ impl Twiddles {
 
 /// Forward transform in place: input in `[0, 2p)`, natural order; output in
 /// `[0, 2p)`, bit-reversed order.
+#[inline(never)]
 pub fn forward(a: &mut [u64], tw: &Twiddles, m: &Modulus) {
     debug_assert_eq!(a.len(), tw.len);
     let (p, two_p) = (m.p, m.two_p);
@@ -88,6 +89,7 @@ pub fn forward(a: &mut [u64], tw: &Twiddles, m: &Modulus) {
 
 /// Inverse transform in place: input in `[0, 4p)`, bit-reversed order;
 /// output in `[0, 4p)`, natural order, multiplied by the length.
+#[inline(never)]
 pub fn inverse(a: &mut [u64], tw: &Twiddles, m: &Modulus) {
     debug_assert_eq!(a.len(), tw.len);
     let (p, two_p) = (m.p, m.two_p);
@@ -108,6 +110,7 @@ pub fn inverse(a: &mut [u64], tw: &Twiddles, m: &Modulus) {
 }
 
 /// [`forward`] on `lanes` interleaved vectors of length `tw.len()`.
+#[inline(never)]
 pub fn forward_lanes(a: &mut [u64], lanes: usize, tw: &Twiddles, m: &Modulus) {
     debug_assert_eq!(a.len(), tw.len * lanes);
     let (p, two_p) = (m.p, m.two_p);
@@ -134,6 +137,7 @@ pub fn forward_lanes(a: &mut [u64], lanes: usize, tw: &Twiddles, m: &Modulus) {
 }
 
 /// [`inverse`] on `lanes` interleaved vectors of length `tw.len()`.
+#[inline(never)]
 pub fn inverse_lanes(a: &mut [u64], lanes: usize, tw: &Twiddles, m: &Modulus) {
     debug_assert_eq!(a.len(), tw.len * lanes);
     let (p, two_p) = (m.p, m.two_p);
@@ -229,7 +233,12 @@ mod tests {
         let lanes = 5;
         let tw = Twiddles::new(pr, n);
         let vectors: Vec<Vec<u64>> = (0..lanes)
-            .map(|l| seeded_words(n, 7 + l as u64).iter().map(|x| x % m.p).collect())
+            .map(|l| {
+                seeded_words(n, 7 + l as u64)
+                    .iter()
+                    .map(|x| x % m.p)
+                    .collect()
+            })
             .collect();
         let mut inter = vec![u64::MAX; n * lanes];
         for (l, v) in vectors.iter().enumerate() {

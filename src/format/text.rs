@@ -1,0 +1,617 @@
+//! Decimal and hexadecimal text operands.
+//!
+//! A text operand is, byte for byte:
+//!
+//! ```text
+//! [-] [0x | 0X] DIGITS [\n | \r\n]
+//! ```
+//!
+//! * an optional `-` as the very first byte;
+//! * for hexadecimal only, an optional `0x` or `0X` prefix right after the
+//!   optional `-`;
+//! * one or more digits (`0-9` for decimal, `0-9a-fA-F` for hexadecimal);
+//!   leading zeros are allowed and ignored;
+//! * at most one trailing line break, LF or CRLF.
+//!
+//! Nothing else is accepted: no `+`, no spaces, no separators, no second
+//! line. `-0` is zero, which is not negative.
+//!
+//! The digits are radix-native: in decimal, limb `i` (base 10^19) is the 19
+//! digits ending `19 * i` bytes before the last digit; in hexadecimal, limb
+//! `i` (base 2^64) is the 16 digits ending `16 * i` bytes before it. The
+//! most significant limb may be shorter. No radix conversion takes place.
+
+use std::io::{self, Write};
+use std::ops::Range;
+use std::path::Path;
+
+use rayon::prelude::*;
+
+use crate::radix::{DEC_BASE, DEC_DIGITS_PER_LIMB, HEX_DIGITS_PER_LIMB};
+use crate::{Error, Result};
+
+/// Which digit set a text operand uses.
+#[derive(Clone, Copy, Debug, PartialEq, Eq)]
+pub(crate) enum TextKind {
+    Decimal,
+    Hex,
+}
+
+/// Where a validated text operand's number lies in its bytes.
+#[derive(Clone, Debug)]
+pub(crate) struct TextLayout {
+    pub kind: TextKind,
+    /// Never set for zero.
+    pub negative: bool,
+    /// The significant digits: no sign, prefix, leading zeros or line break.
+    /// Empty for zero.
+    pub digits: Range<usize>,
+}
+
+/// Validation works in blocks of this many bytes, one rayon task each;
+/// large enough to amortise scheduling, small enough to balance two cores.
+const SCAN_BLOCK: usize = 1 << 16;
+
+/// Limbs parsed by one rayon task in `to_limbs`.
+pub(crate) const PARSE_TASK_LIMBS: usize = 1 << 14;
+
+#[inline]
+fn is_bad_dec(b: u8) -> bool {
+    b.wrapping_sub(b'0') > 9
+}
+
+#[inline]
+fn is_bad_hex(b: u8) -> bool {
+    b.wrapping_sub(b'0') > 9 && (b | 0x20).wrapping_sub(b'a') > 5
+}
+
+/// Offset of the first byte in `body` for which `bad` holds.
+///
+/// Blocks are checked in parallel with a branch-free fold, which the
+/// compiler vectorises; only a block known to hold a bad byte is searched
+/// byte by byte. `find_map_first` keeps the answer the earliest one no
+/// matter which thread finds its block first.
+fn first_bad<F: Fn(u8) -> bool + Sync>(body: &[u8], bad: F) -> Option<usize> {
+    body.par_chunks(SCAN_BLOCK)
+        .enumerate()
+        .find_map_first(|(k, block)| {
+            let any = block
+                .chunks(64)
+                .any(|lane| lane.iter().fold(false, |acc, &b| acc | bad(b)));
+            if !any {
+                return None;
+            }
+            block
+                .iter()
+                .position(|&b| bad(b))
+                .map(|p| k * SCAN_BLOCK + p)
+        })
+}
+
+/// Validates a whole text operand and locates its digits.
+///
+/// `kind: None` detects decimal or hexadecimal: a `0x` prefix, or any
+/// letter `a-f`/`A-F` in an otherwise valid hexadecimal body, means
+/// hexadecimal; a body of only `0-9` is decimal.
+pub(crate) fn scan(path: &Path, bytes: &[u8], kind: Option<TextKind>) -> Result<TextLayout> {
+    let mut end = bytes.len();
+    if bytes.ends_with(b"\r\n") {
+        end -= 2;
+    } else if bytes.ends_with(b"\n") {
+        end -= 1;
+    }
+    let mut pos = 0;
+    let negative = bytes.first() == Some(&b'-');
+    if negative {
+        pos = 1;
+    }
+    let mut kind = kind;
+    let mut prefixed = false;
+    if kind != Some(TextKind::Decimal) {
+        let rest = &bytes[pos..end];
+        if rest.starts_with(b"0x") || rest.starts_with(b"0X") {
+            pos += 2;
+            prefixed = true;
+            kind = Some(TextKind::Hex);
+        }
+    }
+    if pos == end {
+        let what = if prefixed {
+            "no digits after the 0x prefix"
+        } else if negative {
+            "no digits after '-'"
+        } else {
+            "no digits"
+        };
+        return Err(Error::input(
+            path,
+            Some(pos as u64),
+            what,
+            "an operand needs at least one digit; zero is written 0",
+        ));
+    }
+    let body = &bytes[pos..end];
+    let bad_at = |offset: usize, expected: Expected| {
+        let (what, fix) = describe_bad_byte(bytes, pos + offset, end, expected);
+        Err(Error::input(path, Some((pos + offset) as u64), what, fix))
+    };
+    let kind = match kind {
+        Some(TextKind::Decimal) => match first_bad(body, is_bad_dec) {
+            Some(p) => return bad_at(p, Expected::Decimal),
+            None => TextKind::Decimal,
+        },
+        Some(TextKind::Hex) => match first_bad(body, is_bad_hex) {
+            Some(p) => return bad_at(p, Expected::Hex),
+            None => TextKind::Hex,
+        },
+        None => match first_bad(body, is_bad_dec) {
+            None => TextKind::Decimal,
+            Some(p) if is_bad_hex(body[p]) => return bad_at(p, Expected::Either),
+            // Everything before `p` is a decimal digit, hence hexadecimal.
+            Some(p) => match first_bad(&body[p..], is_bad_hex) {
+                Some(q) => return bad_at(p + q, Expected::HexByLetters),
+                None => TextKind::Hex,
+            },
+        },
+    };
+    let zeros = body.iter().position(|&b| b != b'0').unwrap_or(body.len());
+    let digits = pos + zeros..end;
+    Ok(TextLayout {
+        kind,
+        negative: negative && !digits.is_empty(),
+        digits,
+    })
+}
+
+/// What the reader was looking for when it met a bad byte; it shapes the
+/// advice.
+#[derive(Clone, Copy, PartialEq, Eq)]
+enum Expected {
+    /// The format was named as decimal.
+    Decimal,
+    /// The format was named as hexadecimal, or the 0x prefix said so.
+    Hex,
+    /// Detection: the byte is neither kind of digit.
+    Either,
+    /// Detection: an earlier letter made the body hexadecimal.
+    HexByLetters,
+}
+
+fn byte_text(b: u8) -> String {
+    if b.is_ascii_graphic() {
+        format!("byte 0x{b:02X} ('{}')", b as char)
+    } else {
+        format!("byte 0x{b:02X}")
+    }
+}
+
+/// The message and fix for the bad byte at `at`; `end` is where the digits
+/// were to stop (before the one allowed trailing line break).
+fn describe_bad_byte(bytes: &[u8], at: usize, end: usize, expected: Expected) -> (String, String) {
+    let b = bytes[at];
+    let not_digit = match expected {
+        Expected::Decimal => "is not a decimal digit",
+        Expected::Hex | Expected::HexByLetters => "is not a hexadecimal digit",
+        Expected::Either => "is neither a decimal nor a hexadecimal digit",
+    };
+    if at == 0 && bytes.starts_with(&super::container::MAGIC) {
+        return (
+            "the file is a vastmul container, not text".into(),
+            "pass --in-format container, or leave the format to be detected".into(),
+        );
+    }
+    if at == 0 && bytes.starts_with(&[0xEF, 0xBB, 0xBF]) {
+        return (
+            "the file starts with a UTF-8 byte-order mark".into(),
+            "save the file as plain ASCII, without a byte-order mark".into(),
+        );
+    }
+    match b {
+        b'\n' | b'\r' => {
+            if bytes[at..end].iter().all(|&c| c == b'\n' || c == b'\r') {
+                (
+                    "extra line break at the end of the number".into(),
+                    "end the file with at most one newline, LF or CRLF".into(),
+                )
+            } else {
+                (
+                    "line break inside the number".into(),
+                    "an operand is one number on one line; join the lines".into(),
+                )
+            }
+        }
+        b' ' | b'\t' | 0x0B | 0x0C => (
+            format!("{} is whitespace, not a digit", byte_text(b)),
+            "remove it; digits are written as one unbroken run".into(),
+        ),
+        b'+' if at == 0 => (
+            "a leading '+' is not allowed".into(),
+            "remove the '+'; non-negative numbers carry no sign".into(),
+        ),
+        b'-' => (
+            "'-' is only allowed as the first byte".into(),
+            "remove it; a negative number starts with a single '-'".into(),
+        ),
+        b'_' | b',' | b'.' | b'\'' => (
+            format!("{} {not_digit}", byte_text(b)),
+            "remove it; operands are integers, without separators or a fraction".into(),
+        ),
+        b'x' | b'X' if expected == Expected::Decimal && at > 0 && bytes[at - 1] == b'0' => (
+            format!(
+                "{} is not a decimal digit (this looks like a 0x prefix)",
+                byte_text(b)
+            ),
+            "pass --in-format hex, or leave the format to be detected".into(),
+        ),
+        _ => {
+            let what = format!("{} {not_digit}", byte_text(b));
+            let fix = match expected {
+                Expected::Decimal if !is_bad_hex(b) => {
+                    "remove it, or pass --in-format hex if the file is hexadecimal"
+                }
+                Expected::HexByLetters => {
+                    "remove it (the file was read as hexadecimal because it holds the letters a-f)"
+                }
+                _ => "remove it",
+            };
+            (what, fix.into())
+        }
+    }
+}
+
+/// Reads eight bytes as a little-endian word: the first byte is the lowest.
+#[inline]
+fn load8(s: &[u8]) -> u64 {
+    let mut a = [0u8; 8];
+    a.copy_from_slice(&s[..8]);
+    u64::from_le_bytes(a)
+}
+
+/// Eight ASCII decimal digits to their value, in a handful of word
+/// operations instead of eight dependent multiply-adds.
+#[inline]
+fn dec8(s: &[u8]) -> u64 {
+    const LOW_BYTES: u64 = 0x0000_00FF_0000_00FF;
+    // Byte k holds digit k, most significant first.
+    let mut v = load8(s).wrapping_sub(0x3030_3030_3030_3030);
+    // Even bytes now hold two-digit values 10*d[k] + d[k+1] (at most 99).
+    v = v.wrapping_mul(10).wrapping_add(v >> 8);
+    // Pairs p0, p2 sit in bytes 0 and 4, p1, p3 in bytes 2 and 6; each
+    // multiplier places its pair's weight in the upper half, whose top 32
+    // bits are then p0*10^6 + p1*10^4 + p2*10^2 + p3.
+    let a = (v & LOW_BYTES).wrapping_mul(100 + (1_000_000 << 32));
+    let b = ((v >> 16) & LOW_BYTES).wrapping_mul(1 + (10_000 << 32));
+    a.wrapping_add(b) >> 32
+}
+
+/// A full 19-digit decimal limb.
+#[inline]
+fn dec19(s: &[u8]) -> u64 {
+    let top = u64::from(s[0] - b'0') * 100 + u64::from(s[1] - b'0') * 10 + u64::from(s[2] - b'0');
+    top * 10_000_000_000_000_000 + dec8(&s[3..11]) * 100_000_000 + dec8(&s[11..19])
+}
+
+/// A most significant limb of fewer than 19 digits.
+#[inline]
+fn dec_short(s: &[u8]) -> u64 {
+    s.iter()
+        .fold(0u64, |acc, &b| acc * 10 + u64::from(b - b'0'))
+}
+
+/// Eight ASCII hexadecimal digits (either case) to their value.
+#[inline]
+fn hex8(s: &[u8]) -> u64 {
+    let x = load8(s);
+    // Digits have bit 6 clear and their value in the low nibble; letters
+    // have bit 6 set and value 9 + low nibble, in both cases.
+    let nib = (x & 0x0F0F_0F0F_0F0F_0F0F) + ((x >> 6) & 0x0101_0101_0101_0101) * 9;
+    // Merge neighbouring nibbles, then bytes, then 16-bit halves, with the
+    // earlier (more significant) digit on top each time.
+    let v = ((nib << 4) | (nib >> 8)) & 0x00FF_00FF_00FF_00FF;
+    let v = ((v << 8) | (v >> 16)) & 0x0000_FFFF_0000_FFFF;
+    ((v << 16) | (v >> 32)) & 0xFFFF_FFFF
+}
+
+#[inline]
+fn hex16(s: &[u8]) -> u64 {
+    (hex8(&s[..8]) << 32) | hex8(&s[8..16])
+}
+
+#[inline]
+fn hex_value(b: u8) -> u64 {
+    u64::from((b & 0x0F) + ((b >> 6) & 1) * 9)
+}
+
+#[inline]
+fn hex_short(s: &[u8]) -> u64 {
+    s.iter().fold(0u64, |acc, &b| (acc << 4) | hex_value(b))
+}
+
+/// Limbs `first..first + out.len()` of validated significant digits.
+#[inline]
+fn read_radix_native<Full, Short>(
+    digits: &[u8],
+    per_limb: usize,
+    full: Full,
+    short: Short,
+    first: usize,
+    out: &mut [u64],
+) where
+    Full: Fn(&[u8]) -> u64,
+    Short: Fn(&[u8]) -> u64,
+{
+    let limb_count = digits.len().div_ceil(per_limb);
+    for (k, slot) in out.iter_mut().enumerate() {
+        let i = first.saturating_add(k);
+        *slot = if i >= limb_count {
+            0
+        } else {
+            let end = digits.len() - per_limb * i;
+            if end >= per_limb {
+                full(&digits[end - per_limb..end])
+            } else {
+                short(&digits[..end])
+            }
+        };
+    }
+}
+
+/// Base-10^19 limbs of validated significant decimal digits.
+pub(crate) fn read_dec(digits: &[u8], first: usize, out: &mut [u64]) {
+    read_radix_native(digits, DEC_DIGITS_PER_LIMB, dec19, dec_short, first, out);
+}
+
+/// Base-2^64 limbs of validated significant hexadecimal digits.
+pub(crate) fn read_hex(digits: &[u8], first: usize, out: &mut [u64]) {
+    read_radix_native(digits, HEX_DIGITS_PER_LIMB, hex16, hex_short, first, out);
+}
+
+/// Decimal digit pairs "00" to "99", for writing two digits per lookup.
+const PAIRS: &[u8; 200] = b"0001020304050607080910111213141516171819\
+2021222324252627282930313233343536373839\
+4041424344454647484950515253545556575859\
+6061626364656667686970717273747576777879\
+8081828384858687888990919293949596979899";
+
+#[inline]
+fn put2(out: &mut [u8], v: u64) {
+    let i = 2 * v as usize;
+    out[..2].copy_from_slice(&PAIRS[i..i + 2]);
+}
+
+/// Writes `v < 10^8` as exactly eight digits.
+#[inline]
+fn put8(out: &mut [u8], v: u64) {
+    let hi = v / 10_000;
+    let lo = v % 10_000;
+    put2(&mut out[0..], hi / 100);
+    put2(&mut out[2..], hi % 100);
+    put2(&mut out[4..], lo / 100);
+    put2(&mut out[6..], lo % 100);
+}
+
+/// Writes `x < 10^19` as exactly nineteen digits.
+#[inline]
+fn put19(out: &mut [u8], x: u64) {
+    let top = x / 10_000_000_000_000_000;
+    let rest = x % 10_000_000_000_000_000;
+    out[0] = b'0' + (top / 100) as u8;
+    put2(&mut out[1..], top % 100);
+    put8(&mut out[3..], rest / 100_000_000);
+    put8(&mut out[11..], rest % 100_000_000);
+}
+
+/// Writes `x < 10^18` as exactly eighteen digits.
+#[inline]
+pub(crate) fn put18(out: &mut [u8], x: u64) {
+    let top = x / 10_000_000_000_000_000;
+    let rest = x % 10_000_000_000_000_000;
+    put2(out, top);
+    put8(&mut out[2..], rest / 100_000_000);
+    put8(&mut out[10..], rest % 100_000_000);
+}
+
+const HEX_LOWER: &[u8; 16] = b"0123456789abcdef";
+
+/// Writes `x` as exactly sixteen lowercase hexadecimal digits.
+#[inline]
+pub(crate) fn put16_hex(out: &mut [u8], x: u64) {
+    for (k, o) in out[..16].iter_mut().enumerate() {
+        *o = HEX_LOWER[((x >> (60 - 4 * k)) & 0xF) as usize];
+    }
+}
+
+/// Limbs formatted per rayon task when writing.
+const WRITE_TASK_LIMBS: usize = 1 << 15;
+/// Tasks formatted before their bytes are written: bounds the memory held
+/// (about 20 MB of decimal text) while keeping every core busy.
+const WRITE_BATCH_TASKS: usize = 32;
+
+/// Writes `limbs` (little-endian, top limb non-zero, or empty for zero) as
+/// text: sign, top limb without leading zeros, the rest zero-padded to
+/// `width`, then a newline. Formatting runs in parallel; writing is
+/// sequential, in large buffers.
+fn write_text<W: Write, P: Fn(&mut [u8], u64) -> bool + Sync>(
+    w: &mut W,
+    negative: bool,
+    limbs: &[u64],
+    width: usize,
+    put: P,
+) -> io::Result<()> {
+    let Some((&top, lower)) = limbs.split_last() else {
+        return w.write_all(b"0\n");
+    };
+    let mut head = Vec::with_capacity(width + 1);
+    if negative {
+        head.push(b'-');
+    }
+    let mut top_digits = vec![0u8; width];
+    if !put(&mut top_digits, top) {
+        return Err(bad_limb(limbs.len() - 1, top));
+    }
+    let skip = top_digits
+        .iter()
+        .position(|&b| b != b'0')
+        .unwrap_or(width - 1);
+    head.extend_from_slice(&top_digits[skip..]);
+    w.write_all(&head)?;
+
+    // `rchunks` yields the most significant limbs first, the order in which
+    // the text is written.
+    let tasks: Vec<&[u64]> = lower.rchunks(WRITE_TASK_LIMBS).collect();
+    let mut bufs: Vec<Vec<u8>> = vec![Vec::new(); WRITE_BATCH_TASKS.min(tasks.len())];
+    let mut limbs_before = 0usize;
+    for batch in tasks.chunks(WRITE_BATCH_TASKS) {
+        batch
+            .par_iter()
+            .zip(bufs.par_iter_mut())
+            .enumerate()
+            .try_for_each(|(t, (chunk, buf))| {
+                buf.clear();
+                buf.resize(chunk.len() * width, 0);
+                for (j, (&x, out)) in chunk
+                    .iter()
+                    .rev()
+                    .zip(buf.chunks_exact_mut(width))
+                    .enumerate()
+                {
+                    if !put(out, x) {
+                        // Index from the top of the whole number, converted
+                        // back to a limb index.
+                        let from_top = limbs_before + t * WRITE_TASK_LIMBS + j;
+                        return Err(bad_limb(lower.len() - 1 - from_top, x));
+                    }
+                }
+                Ok(())
+            })?;
+        for buf in &bufs[..batch.len()] {
+            w.write_all(buf)?;
+        }
+        limbs_before += batch.iter().map(|c| c.len()).sum::<usize>();
+    }
+    w.write_all(b"\n")
+}
+
+fn bad_limb(index: usize, value: u64) -> io::Error {
+    io::Error::new(
+        io::ErrorKind::InvalidInput,
+        format!("limb {index} is {value}, which is not below 10^19: not a decimal limb"),
+    )
+}
+
+fn put_dec_checked(out: &mut [u8], x: u64) -> bool {
+    if x >= DEC_BASE {
+        return false;
+    }
+    put19(out, x);
+    true
+}
+
+fn put_hex_checked(out: &mut [u8], x: u64) -> bool {
+    put16_hex(out, x);
+    true
+}
+
+/// Writes base-10^19 limbs as canonical decimal text.
+pub(crate) fn write_dec<W: Write>(w: &mut W, negative: bool, limbs: &[u64]) -> io::Result<()> {
+    write_text(w, negative, limbs, DEC_DIGITS_PER_LIMB, put_dec_checked)
+}
+
+/// Writes base-2^64 limbs as canonical lowercase hexadecimal text.
+pub(crate) fn write_hex<W: Write>(w: &mut W, negative: bool, limbs: &[u64]) -> io::Result<()> {
+    write_text(w, negative, limbs, HEX_DIGITS_PER_LIMB, put_hex_checked)
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn swar_decimal_matches_naive() {
+        let cases = [
+            b"00000000",
+            b"99999999",
+            b"12345678",
+            b"10000000",
+            b"00000001",
+            b"90817263",
+        ];
+        for c in cases {
+            assert_eq!(dec8(c), dec_short(c), "{}", String::from_utf8_lossy(c));
+        }
+        let mut r = crate::rng::Rng::new(5);
+        for _ in 0..10_000 {
+            let x = r.below(DEC_BASE);
+            let mut s = [0u8; 19];
+            put19(&mut s, x);
+            assert_eq!(dec19(&s), x);
+            assert_eq!(dec_short(&s), x);
+            assert_eq!(format!("{x:019}").as_bytes(), &s);
+        }
+    }
+
+    #[test]
+    fn swar_hex_matches_naive() {
+        let mut r = crate::rng::Rng::new(6);
+        for _ in 0..10_000 {
+            let x = r.next_u64();
+            let lower = format!("{x:016x}");
+            let upper = format!("{x:016X}");
+            assert_eq!(hex16(lower.as_bytes()), x);
+            assert_eq!(hex16(upper.as_bytes()), x);
+            assert_eq!(hex_short(upper.as_bytes()), x);
+            let mut s = [0u8; 16];
+            put16_hex(&mut s, x);
+            assert_eq!(&s, lower.as_bytes());
+        }
+        assert_eq!(hex16(b"ffffffffffffffff"), u64::MAX);
+        assert_eq!(hex16(b"0000000000000000"), 0);
+    }
+
+    #[test]
+    fn put18_pads() {
+        let mut s = [0u8; 18];
+        put18(&mut s, 42);
+        assert_eq!(&s, b"000000000000000042");
+        put18(&mut s, 999_999_999_999_999_999);
+        assert_eq!(&s, b"999999999999999999");
+    }
+
+    #[test]
+    fn classification() {
+        for b in 0..=255u8 {
+            assert_eq!(!is_bad_dec(b), b.is_ascii_digit(), "{b}");
+            assert_eq!(!is_bad_hex(b), b.is_ascii_hexdigit(), "{b}");
+        }
+    }
+
+    #[test]
+    fn first_bad_finds_the_earliest_across_blocks() {
+        let mut body = vec![b'7'; SCAN_BLOCK * 5 + 123];
+        assert_eq!(first_bad(&body, is_bad_dec), None);
+        body[SCAN_BLOCK * 4 + 9] = b'x';
+        body[SCAN_BLOCK * 3 - 1] = b'y';
+        body[SCAN_BLOCK * 3 + 1] = b'z';
+        assert_eq!(first_bad(&body, is_bad_dec), Some(SCAN_BLOCK * 3 - 1));
+        body[0] = b' ';
+        assert_eq!(first_bad(&body, is_bad_dec), Some(0));
+    }
+
+    #[test]
+    fn bad_limb_is_reported_with_its_index() {
+        let mut limbs = vec![1u64; WRITE_TASK_LIMBS * 3 + 5];
+        limbs[WRITE_TASK_LIMBS + 2] = DEC_BASE;
+        let err = write_dec(&mut Vec::new(), false, &limbs).unwrap_err();
+        assert_eq!(err.kind(), io::ErrorKind::InvalidInput);
+        assert!(
+            err.to_string()
+                .contains(&format!("limb {} ", WRITE_TASK_LIMBS + 2)),
+            "{err}"
+        );
+        let top = limbs.len() - 1;
+        limbs[WRITE_TASK_LIMBS + 2] = 0;
+        limbs[top] = u64::MAX;
+        let err = write_dec(&mut Vec::new(), false, &limbs).unwrap_err();
+        assert!(err.to_string().contains(&format!("limb {top} ")), "{err}");
+    }
+}

@@ -1,0 +1,191 @@
+//! The `mul` job end to end: open and validate the operands, plan, compute,
+//! and write the product atomically in the requested format.
+
+use crate::engine::{self, LimbSource};
+use crate::format::{format_radix_compatible, write_operand, Format, Operand};
+use crate::output::{ensure_distinct, AtomicOutput};
+use crate::plan::{self, Force, Plan, Request};
+use crate::{Error, Result};
+use rayon::prelude::*;
+use serde::Serialize;
+use std::io::{BufWriter, Write};
+use std::path::{Path, PathBuf};
+use std::time::Instant;
+
+/// What a multiplication is asked to do.
+#[derive(Clone, Debug)]
+pub struct MulOptions {
+    /// First operand file.
+    pub a: PathBuf,
+    /// Second operand file.
+    pub b: PathBuf,
+    /// Where the product goes.
+    pub output: PathBuf,
+    /// Operand format, or `None` to detect each file's.
+    pub in_format: Option<Format>,
+    /// Product format, or `None` for the first operand's.
+    pub out_format: Option<Format>,
+    /// Replace an existing output.
+    pub force: bool,
+    /// Worker threads.
+    pub threads: usize,
+    /// A forced algorithm (benchmarks and tests).
+    pub algorithm: Force,
+}
+
+/// What a multiplication did.
+#[derive(Clone, Debug, Serialize)]
+pub struct MulReport {
+    /// The plan that was carried out.
+    pub plan: Plan,
+    /// Format of the written product.
+    pub out_format: Format,
+    /// Seconds spent opening and validating the inputs.
+    pub open_seconds: f64,
+    /// Seconds spent computing the product's limbs.
+    pub compute_seconds: f64,
+    /// Seconds spent writing and syncing the output.
+    pub write_seconds: f64,
+    /// Limbs of the product (no leading zeros).
+    pub product_limbs: usize,
+}
+
+impl LimbSource for Operand {
+    fn fill_limbs(&self, first: usize, out: &mut [u64]) {
+        self.read_limbs(first, out)
+    }
+}
+
+/// True when both files are the same file (same device and inode).
+fn same_file(a: &Path, b: &Path) -> bool {
+    use std::os::unix::fs::MetadataExt;
+    match (std::fs::metadata(a), std::fs::metadata(b)) {
+        (Ok(x), Ok(y)) => x.dev() == y.dev() && x.ino() == y.ino(),
+        _ => false,
+    }
+}
+
+/// True when two operands hold the same magnitude, compared in parallel
+/// chunks that stop at the first difference.
+fn same_magnitude(a: &Operand, b: &Operand) -> bool {
+    if a.radix() != b.radix() || a.limb_count() != b.limb_count() {
+        return false;
+    }
+    const CHUNK: usize = 1 << 16;
+    let chunks = a.limb_count().div_ceil(CHUNK);
+    (0..chunks).into_par_iter().all(|c| {
+        let first = c * CHUNK;
+        let len = CHUNK.min(a.limb_count() - first);
+        let (mut x, mut y) = (vec![0u64; len], vec![0u64; len]);
+        a.read_limbs(first, &mut x);
+        b.read_limbs(first, &mut y);
+        x == y
+    })
+}
+
+/// Two opened operands of one radix; `b` is `None` when both paths name
+/// the same file.
+struct Operands {
+    a: Operand,
+    b: Option<Operand>,
+}
+
+impl Operands {
+    fn open(a_path: &Path, b_path: &Path, format: Option<Format>) -> Result<Self> {
+        let a = Operand::open(a_path, format)?;
+        let b = if same_file(a_path, b_path) {
+            None
+        } else {
+            Some(Operand::open(b_path, format)?)
+        };
+        let ops = Operands { a, b };
+        let (a, b) = (&ops.a, ops.b());
+        if a.radix() != b.radix() {
+            return Err(Error::input(
+                b_path,
+                None,
+                format!(
+                    "radix {} ({} format) does not match {}'s radix {} ({} format)",
+                    b.radix().name(),
+                    b.format(),
+                    a_path.display(),
+                    a.radix().name(),
+                    a.format()
+                ),
+                "vastmul multiplies in the operands' own radix without conversion: give both \
+                 operands in decimal, or both in hexadecimal, raw limbs or binary containers",
+            ));
+        }
+        Ok(ops)
+    }
+
+    fn b(&self) -> &Operand {
+        self.b.as_ref().unwrap_or(&self.a)
+    }
+
+    fn request(&self, threads: usize, force: Force) -> Request {
+        let (a, b) = (&self.a, self.b());
+        Request {
+            a_limbs: a.limb_count(),
+            b_limbs: b.limb_count(),
+            radix: a.radix(),
+            square: self.b.is_none() || same_magnitude(a, b),
+            threads,
+            force,
+        }
+    }
+}
+
+/// The plan `vastmul mul` would follow for these operand files.
+pub fn plan_files(a: &Path, b: &Path, format: Option<Format>, threads: usize) -> Result<Plan> {
+    let ops = Operands::open(a, b, format)?;
+    plan::plan(&ops.request(threads, Force::Auto))
+}
+
+/// Multiplies two operand files into an output file.
+pub fn multiply_files(opts: &MulOptions) -> Result<MulReport> {
+    let started = Instant::now();
+    let ops = Operands::open(&opts.a, &opts.b, opts.in_format)?;
+    let (a, b) = (&ops.a, ops.b());
+    let radix = a.radix();
+    let out_format = opts.out_format.unwrap_or(a.format());
+    if !format_radix_compatible(out_format, radix) {
+        return Err(Error::usage(
+            format!(
+                "--out-format {out_format} cannot hold a product in radix {} without a radix conversion",
+                radix.name()
+            ),
+            match radix {
+                crate::Radix::Decimal => "use --out-format dec or container for decimal operands",
+                crate::Radix::Binary => "use --out-format hex, limbs or container for binary operands",
+            },
+        ));
+    }
+    let negative = a.is_negative() != b.is_negative();
+    ensure_distinct(&opts.output, &[&opts.a, &opts.b])?;
+    let mut out = AtomicOutput::create(&opts.output, opts.force)?;
+    let plan = plan::plan(&ops.request(opts.threads, opts.algorithm))?;
+    let open_seconds = started.elapsed().as_secs_f64();
+
+    let compute = Instant::now();
+    let product = engine::execute(&plan, a, b)?;
+    let compute_seconds = compute.elapsed().as_secs_f64();
+
+    let write = Instant::now();
+    let target = opts.output.clone();
+    {
+        let mut w = BufWriter::with_capacity(1 << 22, out.file());
+        write_operand(&mut w, out_format, radix, negative, &product)
+            .and_then(|_| w.flush())
+            .map_err(|e| Error::io(&target, e))?;
+    }
+    out.commit()?;
+    Ok(MulReport {
+        plan,
+        out_format,
+        open_seconds,
+        compute_seconds,
+        write_seconds: write.elapsed().as_secs_f64(),
+        product_limbs: product.len(),
+    })
+}
