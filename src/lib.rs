@@ -28,4 +28,6 @@ pub mod storage;
 #[cfg(test)]
 pub(crate) mod test_oracles;
 pub use engine::multiply;
+pub mod demo;
 pub mod job;
+pub mod residue;

@@ -55,6 +55,25 @@ enum AlgorithmArg {
 
 #[derive(Subcommand)]
 enum Command {
+    /// Run the main job end to end on built-in seeded data and report.
+    #[command(after_help = "Example:\n  vastmul demo --digits 20000000")]
+    Demo {
+        /// Digits of each generated operand.
+        #[arg(long, default_value_t = 20_000_000)]
+        digits: u64,
+        /// Directory for the demo's files (default: a new temporary one).
+        #[arg(long)]
+        dir: Option<PathBuf>,
+        /// Keep the files afterwards.
+        #[arg(long)]
+        keep: bool,
+        /// Replace demo files left in --dir by an earlier run.
+        #[arg(long)]
+        force: bool,
+        /// Worker threads (default: every core).
+        #[arg(long)]
+        threads: Option<usize>,
+    },
     /// Multiply two operand files into a product file.
     #[command(after_help = "Example:\n  vastmul mul a.txt b.txt -o product.txt --threads 2")]
     Mul {
@@ -159,6 +178,57 @@ fn set_threads(threads: Option<usize>) -> Result<usize, Error> {
 
 fn run(cli: Cli) -> Result<(), Error> {
     match cli.command {
+        Command::Demo {
+            digits,
+            dir,
+            keep,
+            force,
+            threads,
+        } => {
+            let threads = set_threads(threads)?;
+            let temporary = dir.is_none();
+            let dir = dir.unwrap_or_else(|| {
+                std::env::temp_dir().join(format!("vastmul-demo-{}", std::process::id()))
+            });
+            println!("vastmul demo: an orbit-survey team multiplies its two ledger integers");
+            println!(
+                "  generating two {digits}-digit decimal operands in {}",
+                dir.display()
+            );
+            let r = vastmul::demo::run(&dir, digits, threads, force || temporary)?;
+            println!("  generated in {:.2} s", r.gen_seconds);
+            println!(
+                "  multiplied with {:?} on {} threads: {:.2} s (open {:.2}, compute {:.2}, write {:.2})",
+                r.mul.plan.algorithm,
+                threads,
+                r.mul.open_seconds + r.mul.compute_seconds + r.mul.write_seconds,
+                r.mul.open_seconds,
+                r.mul.compute_seconds,
+                r.mul.write_seconds
+            );
+            println!(
+                "  product: {} ({} limbs of radix 10^19)",
+                r.files[2].display(),
+                r.mul.product_limbs
+            );
+            println!(
+                "  residues mod 2^61-1: east {:#x}, west {:#x}, product {:#x}",
+                r.residues[0], r.residues[1], r.residues[2]
+            );
+            if !r.verified {
+                return Err(Error::Verify {
+                    what: "demo product residue does not match its factors".into(),
+                });
+            }
+            println!("  check: east x west = product modulo 2^61-1: OK");
+            if temporary && !keep {
+                std::fs::remove_dir_all(&dir).map_err(|e| Error::io(&dir, e))?;
+                println!(
+                    "  removed {} (pass --keep to keep the files)",
+                    dir.display()
+                );
+            }
+        }
         Command::Mul {
             a,
             b,

@@ -179,12 +179,11 @@ fn load(path: &Path) -> Result<Backing> {
             "an operand needs at least one digit; zero is written 0",
         )
     };
-    if meta.is_file() && meta.len() == 0 {
-        // A zero-length mapping is an error on most systems; nothing to map.
-        return Err(empty());
-    }
     let mut file = File::open(path).map_err(|e| open_error(path, &e))?;
-    if meta.is_file() {
+    // A zero-length mapping is an error on most systems, and some regular
+    // files (under /proc, for one) report length 0 yet have content: those
+    // are read instead.
+    if meta.is_file() && meta.len() > 0 {
         // SAFETY: the mapping is read-only, and nothing in vastmul writes to
         // or truncates an input file while it is mapped (see the contract in
         // this function's documentation). The bytes are only ever read as
@@ -892,7 +891,9 @@ mod tests {
         assert!(text.contains("check the path"), "{text}");
         assert!(matches!(err, Error::Input { offset: None, .. }));
 
-        let err = Operand::open(dir.path(), None).unwrap_err().to_string();
+        let err = Operand::open(dir.path(), None).unwrap_err();
+        assert!(matches!(&err, Error::Input { offset: None, path, .. } if path == dir.path()));
+        let err = err.to_string();
         assert!(err.contains("is a directory, not an operand file"), "{err}");
 
         let denied = open_error(&missing, &io::Error::from(io::ErrorKind::PermissionDenied));
@@ -917,14 +918,37 @@ mod tests {
     }
 
     #[test]
+    #[cfg(target_os = "linux")]
     fn special_files_are_read_without_mapping() {
-        #[cfg(target_os = "linux")]
-        {
-            let err = Operand::open(Path::new("/dev/null"), None)
-                .unwrap_err()
-                .to_string();
-            assert!(err.contains("file is empty"), "{err}");
+        let err = Operand::open(Path::new("/dev/null"), None)
+            .unwrap_err()
+            .to_string();
+        assert!(
+            err.contains("/dev/null") && err.contains("file is empty"),
+            "{err}"
+        );
+
+        // Length 0 in its metadata, yet it has content: it starts with the
+        // process id, then a space.
+        let err = Operand::open(Path::new("/proc/self/stat"), None).unwrap_err();
+        assert!(err.to_string().contains("whitespace"), "{err}");
+
+        let dir = tempfile::tempdir().unwrap();
+        let fifo = dir.path().join("pipe");
+        let made = std::process::Command::new("mkfifo").arg(&fifo).status();
+        if !made.is_ok_and(|s| s.success()) {
+            return;
         }
+        let writer = {
+            let fifo = fifo.clone();
+            std::thread::spawn(move || std::fs::write(fifo, b"-0x1f\n").unwrap())
+        };
+        let op = Operand::open(&fifo, None).unwrap();
+        writer.join().unwrap();
+        assert_eq!(op.format(), Format::Hex);
+        assert!(op.is_negative());
+        assert_eq!(op.to_limbs(), vec![0x1f]);
+        assert_eq!(op.file_len(), 6);
     }
 
     #[test]

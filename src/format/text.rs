@@ -595,6 +595,26 @@ mod tests {
         assert_eq!(first_bad(&body, is_bad_dec), Some(SCAN_BLOCK * 3 - 1));
         body[0] = b' ';
         assert_eq!(first_bad(&body, is_bad_dec), Some(0));
+
+        // Bad bytes in almost every block, searched by many threads: only an
+        // ordered search reports the earliest every time.
+        // The earliest sits late in the first half, where the calling thread
+        // reaches it last; the second half is bad from its first block on.
+        let mut body = vec![b'7'; SCAN_BLOCK * 128];
+        body[SCAN_BLOCK * 60 + 60] = b'x';
+        for k in 64..128 {
+            body[SCAN_BLOCK * k + k] = b'x';
+        }
+        let pool = rayon::ThreadPoolBuilder::new()
+            .num_threads(8)
+            .build()
+            .unwrap();
+        for _ in 0..20 {
+            assert_eq!(
+                pool.install(|| first_bad(&body, is_bad_dec)),
+                Some(SCAN_BLOCK * 60 + 60)
+            );
+        }
     }
 
     #[test]

@@ -72,11 +72,13 @@ pub fn forward(a: &mut [u64], tw: &Twiddles, m: &Modulus) {
     debug_assert_eq!(a.len(), tw.len);
     let (p, two_p) = (m.p, m.two_p);
     let mut half = a.len() / 2;
-    while half >= 1 {
-        let stage = &tw.fwd[half..2 * half];
+    while half >= 2 {
+        let stage = &tw.fwd[half + 1..2 * half];
         for block in a.chunks_exact_mut(2 * half) {
             let (lo, hi) = block.split_at_mut(half);
-            for ((x, y), w) in lo.iter_mut().zip(hi.iter_mut()).zip(stage) {
+            // The first twiddle of every block is 1: no product needed.
+            dif_unit(&mut lo[0], &mut hi[0], two_p);
+            for ((x, y), w) in lo[1..].iter_mut().zip(hi[1..].iter_mut()).zip(stage) {
                 let (u, v) = (*x, *y);
                 let s = u + v;
                 *x = if s >= two_p { s - two_p } else { s };
@@ -85,6 +87,31 @@ pub fn forward(a: &mut [u64], tw: &Twiddles, m: &Modulus) {
         }
         half /= 2;
     }
+    if a.len() >= 2 {
+        for pair in a.chunks_exact_mut(2) {
+            let (x, y) = pair.split_at_mut(1);
+            dif_unit(&mut x[0], &mut y[0], two_p);
+        }
+    }
+}
+
+/// A decimation-in-frequency butterfly with twiddle 1, keeping `[0, 2p)`.
+#[inline(always)]
+fn dif_unit(x: &mut u64, y: &mut u64, two_p: u64) {
+    let (u, v) = (*x, *y);
+    let s = u + v;
+    let d = u + two_p - v;
+    *x = if s >= two_p { s - two_p } else { s };
+    *y = if d >= two_p { d - two_p } else { d };
+}
+
+/// A decimation-in-time butterfly with twiddle 1: `[0, 4p)` in and out.
+#[inline(always)]
+fn dit_unit(x: &mut u64, y: &mut u64, two_p: u64) {
+    let u = if *x >= two_p { *x - two_p } else { *x };
+    let t = if *y >= two_p { *y - two_p } else { *y };
+    *x = u + t;
+    *y = u + two_p - t;
 }
 
 /// Inverse transform in place: input in `[0, 4p)`, bit-reversed order;
@@ -93,12 +120,19 @@ pub fn forward(a: &mut [u64], tw: &Twiddles, m: &Modulus) {
 pub fn inverse(a: &mut [u64], tw: &Twiddles, m: &Modulus) {
     debug_assert_eq!(a.len(), tw.len);
     let (p, two_p) = (m.p, m.two_p);
-    let mut half = 1;
+    if a.len() >= 2 {
+        for pair in a.chunks_exact_mut(2) {
+            let (x, y) = pair.split_at_mut(1);
+            dit_unit(&mut x[0], &mut y[0], two_p);
+        }
+    }
+    let mut half = 2;
     while half < a.len() {
-        let stage = &tw.inv[half..2 * half];
+        let stage = &tw.inv[half + 1..2 * half];
         for block in a.chunks_exact_mut(2 * half) {
             let (lo, hi) = block.split_at_mut(half);
-            for ((x, y), w) in lo.iter_mut().zip(hi.iter_mut()).zip(stage) {
+            dit_unit(&mut lo[0], &mut hi[0], two_p);
+            for ((x, y), w) in lo[1..].iter_mut().zip(hi[1..].iter_mut()).zip(stage) {
                 let u = if *x >= two_p { *x - two_p } else { *x };
                 let t = w.mul_lazy(*y, p);
                 *x = u + t;
@@ -251,7 +285,7 @@ mod tests {
             let mut single = v.clone();
             forward(&mut single, &tw, &m);
             for i in 0..n {
-                assert_eq!(inter[i * lanes + l], single[i]);
+                assert_eq!(inter[i * lanes + l] % m.p, single[i] % m.p);
             }
         }
         let mut back = inter.clone();
@@ -281,6 +315,40 @@ mod tests {
         inverse(&mut a, &tw, &m);
         let c: Vec<u64> = a.iter().map(|x| x % m.p).collect();
         assert_eq!(c, vec![4, 13, 22, 15]);
+    }
+
+    /// Published values: the sympy documentation's and tutorials' examples
+    /// of `sympy.discrete.transforms.ntt`, which uses the primitive root of
+    /// the prime: `ntt([1, 2, 3, 4, 0, 0, 0, 0], 17)` with root 3^2 gives
+    /// [10, 16, 6, 11, 15, 13, 7, 15], and `ntt([15, 21, 13, 44], 769)` with
+    /// root 11^192 gives [93, 114, 732, 659].
+    #[test]
+    fn published_small_prime_examples() {
+        type Case = (u64, u64, u32, &'static [u64], &'static [u64]);
+        let cases: [Case; 2] = [
+            (
+                17,
+                3,
+                4,
+                &[1, 2, 3, 4, 0, 0, 0, 0],
+                &[10, 16, 6, 11, 15, 13, 7, 15],
+            ),
+            (769, 11, 8, &[15, 21, 13, 44], &[93, 114, 732, 659]),
+        ];
+        for (p, g, two_adicity, input, expect) in cases {
+            let prime = NttPrime {
+                modulus: Modulus::new(p),
+                two_adicity,
+                generator: g,
+            };
+            let n = input.len();
+            let tw = Twiddles::new(&prime, n);
+            let mut a = input.to_vec();
+            forward(&mut a, &tw, &prime.modulus);
+            let bits = n.trailing_zeros();
+            let natural: Vec<u64> = (0..n).map(|k| a[bit_reverse(k, bits)] % p).collect();
+            assert_eq!(natural, expect, "modulo {p}");
+        }
     }
 
     /// The transform of a unit impulse is all ones, and that of a constant
