@@ -33,7 +33,47 @@ fn best_of(runs: usize, mut f: impl FnMut()) -> f64 {
         .fold(f64::INFINITY, f64::min)
 }
 
+/// Schoolbook against the NTT on one thread, balanced and unbalanced, to
+/// place the planner's threshold.
+fn crossover() {
+    let pool = rayon::ThreadPoolBuilder::new()
+        .num_threads(1)
+        .build()
+        .unwrap();
+    println!("la        lb      schoolbook_s  ntt_s      ntt/schoolbook");
+    let mut pairs: Vec<(usize, usize)> = [8, 16, 24, 32, 48, 64, 96, 128, 192, 256, 512]
+        .iter()
+        .map(|&n| (n, n))
+        .collect();
+    pairs.extend([16, 32, 64, 128, 256, 512].iter().map(|&k| (100_000, k)));
+    for (la, lb) in pairs {
+        let a = limbs(la, 3, Radix::Binary);
+        let b = limbs(lb, 5, Radix::Binary);
+        let reps = (2_000_000 / (la * lb)).clamp(1, 2000);
+        let time = |force| {
+            best_of(3, || {
+                pool.install(|| {
+                    for _ in 0..reps {
+                        std::hint::black_box(vastmul::engine::multiply_forced(
+                            &a,
+                            &b,
+                            Radix::Binary,
+                            force,
+                        ));
+                    }
+                })
+            }) / reps as f64
+        };
+        let (s, n) = (time(Force::Schoolbook), time(Force::Ntt));
+        println!("{la:<9} {lb:<7} {s:<13.3e} {n:<10.3e} {:.2}", n / s);
+    }
+}
+
 fn main() {
+    if std::env::args().any(|a| a == "crossover") {
+        crossover();
+        return;
+    }
     let logs: Vec<u32> = std::env::args()
         .skip(1)
         .filter_map(|a| a.parse().ok())

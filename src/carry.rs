@@ -70,6 +70,18 @@ where
 {
     assert!(out.len() > count);
     let chunk = (count / (4 * rayon::current_num_threads()).max(1)).clamp(1 << 12, 1 << 20);
+    // A single chunk needs no fix-up and no thread pool.
+    if count <= chunk {
+        let mut coeffs = vec![[0u64; 3]; count];
+        coeff(0, &mut coeffs);
+        let mut carry = [0u64; 3];
+        for (d, c) in out.iter_mut().zip(&coeffs) {
+            let (q, r) = split_limb(add192(*c, carry), radix);
+            *d = r;
+            carry = q;
+        }
+        return finish(out, count, carry, radix);
+    }
     let (body, _) = out.split_at_mut(count);
     // First pass: each chunk with zero carry in, returning its carry out.
     let carries: Vec<U192> = body
@@ -103,6 +115,11 @@ where
         }
         carry = add192(carry, *chunk_carry);
     }
+    finish(out, count, carry, radix)
+}
+
+/// Writes the final carry above the coefficients and zero-fills the rest.
+fn finish(out: &mut [u64], count: usize, mut carry: U192, radix: Radix) {
     let mut k = count;
     while carry != [0, 0, 0] {
         assert!(k < out.len(), "product overflows its limb count");

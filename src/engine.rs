@@ -2,11 +2,11 @@
 //! sources, and the convenience entry points on limb slices.
 
 use crate::carry::{self, U192};
-use crate::fourstep::FourStep;
+use crate::fourstep::{FourStep, Shape};
 use crate::plan::{self, Algorithm, Force, Plan, Request};
 use crate::radix::Radix;
 use crate::schoolbook;
-use crate::storage::RamStore;
+use crate::storage::{RamStore, WordBuf};
 use crate::Result;
 
 /// A source of limbs: `fill_limbs(first, out)` writes limbs
@@ -38,14 +38,14 @@ fn read_all<L: LimbSource + ?Sized>(src: &L, len: usize) -> Vec<u64> {
 
 /// Carries out `plan` on `a` and `b` (ignored for a square) and returns the
 /// product's limbs, most significant zero limbs removed (empty for zero).
-pub fn execute<A, B>(plan: &Plan, a: &A, b: &B) -> Result<Vec<u64>>
+pub fn execute<A, B>(plan: &Plan, a: &A, b: &B) -> Result<WordBuf>
 where
     A: LimbSource + ?Sized,
     B: LimbSource + ?Sized,
 {
     let (la, lb) = (plan.a_limbs, plan.b_limbs);
     let mut out = match plan.algorithm {
-        Algorithm::Zero => Vec::new(),
+        Algorithm::Zero => WordBuf::zeroed(0),
         Algorithm::Schoolbook => {
             let av = read_all(a, la);
             let bv = if plan.square {
@@ -54,7 +54,7 @@ where
                 read_all(b, lb)
             };
             let coeffs = schoolbook::convolution(&av, &bv);
-            let mut out = vec![0u64; plan.product_limbs];
+            let mut out = WordBuf::zeroed(plan.product_limbs);
             carry::propagate(
                 coeffs.len(),
                 |first, dst: &mut [U192]| dst.copy_from_slice(&coeffs[first..first + dst.len()]),
@@ -63,43 +63,68 @@ where
             );
             out
         }
-        Algorithm::Ntt { shape } => {
-            let fs = FourStep::new(shape);
-            let n = shape.len();
-            let stores_a: Vec<RamStore> = (0..3).map(|_| RamStore::zeroed(n)).collect();
-            fs.forward_columns(&|f, o: &mut [u64]| a.fill_limbs(f, o), la, &stores_a)?;
-            if plan.square {
-                fs.rows(&stores_a, None)?;
-            } else {
-                let stores_b: Vec<RamStore> = (0..3).map(|_| RamStore::zeroed(n)).collect();
-                fs.forward_columns(&|f, o: &mut [u64]| b.fill_limbs(f, o), lb, &stores_b)?;
-                fs.rows(&stores_a, Some(&stores_b))?;
-            }
-            let count = la + lb - 1;
-            fs.inverse_columns(&stores_a, count)?;
-            let mut out = vec![0u64; plan.product_limbs];
-            let failure = std::sync::Mutex::new(None);
-            carry::propagate(
-                count,
-                |first, dst: &mut [U192]| {
-                    let mut tmp = Vec::new();
-                    if let Err(e) = FourStep::read_coefficients(&stores_a, first, dst, &mut tmp) {
-                        *failure.lock().unwrap() = Some(e);
-                    }
-                },
-                plan.radix,
-                &mut out,
-            );
-            if let Some(e) = failure.into_inner().unwrap() {
-                return Err(e);
-            }
-            out
-        }
+        Algorithm::Ntt { shape } => ntt_product(plan, shape, a, b)?,
     };
-    while out.last() == Some(&0) {
-        out.pop();
-    }
+    let len = out.iter().rposition(|&w| w != 0).map_or(0, |i| i + 1);
+    out.truncate(len);
     Ok(out)
+}
+
+/// The NTT path: all three primes' column transforms of `a` in one read of
+/// it, then prime by prime the column transform of `b` into one reused
+/// store, the row pass and the inverse columns; finally the CRT and carry
+/// pass write the limbs into that reused store.
+fn ntt_product<A, B>(plan: &Plan, shape: Shape, a: &A, b: &B) -> Result<WordBuf>
+where
+    A: LimbSource + ?Sized,
+    B: LimbSource + ?Sized,
+{
+    let (la, lb) = (plan.a_limbs, plan.b_limbs);
+    let fs = FourStep::new(shape);
+    let n = shape.len();
+    let count = la + lb - 1;
+    let stores_a = [
+        RamStore::zeroed(n),
+        RamStore::zeroed(n),
+        RamStore::zeroed(n),
+    ];
+    let a_refs: Vec<&RamStore> = stores_a.iter().collect();
+    fs.forward_columns(
+        &|f, o: &mut [u64]| a.fill_limbs(f, o),
+        la,
+        &[0, 1, 2],
+        &a_refs,
+    )?;
+    let spare = (!plan.square).then(|| RamStore::zeroed(n.max(plan.product_limbs)));
+    for (k, store) in stores_a.iter().enumerate() {
+        if let Some(spare) = &spare {
+            fs.forward_columns(&|f, o: &mut [u64]| b.fill_limbs(f, o), lb, &[k], &[spare])?;
+        }
+        fs.rows(k, store, spare.as_ref())?;
+        fs.inverse_columns(k, store)?;
+    }
+    fs.check_zero_tail(&a_refs, count)?;
+    let mut out = match spare {
+        Some(s) => s.into_words(),
+        None => WordBuf::zeroed(plan.product_limbs),
+    };
+    out.truncate(plan.product_limbs);
+    let failure = std::sync::Mutex::new(None);
+    carry::propagate(
+        count,
+        |first, dst: &mut [U192]| {
+            let mut tmp = Default::default();
+            if let Err(e) = fs.coefficients(&a_refs, first, dst, &mut tmp) {
+                *failure.lock().unwrap() = Some(e);
+            }
+        },
+        plan.radix,
+        &mut out,
+    );
+    match failure.into_inner().unwrap() {
+        Some(e) => Err(e),
+        None => Ok(out),
+    }
 }
 
 fn trimmed(x: &[u64]) -> &[u64] {
@@ -127,7 +152,9 @@ pub fn multiply_forced(a: &[u64], b: &[u64], radix: Radix, force: Force) -> Vec<
         force,
     };
     let plan = plan::plan(&req).expect("in-memory products of slices always plan");
-    execute(&plan, a, b).expect("RAM stores do not fail")
+    execute(&plan, a, b)
+        .expect("RAM stores do not fail")
+        .to_vec()
 }
 
 #[cfg(test)]

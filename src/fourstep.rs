@@ -14,13 +14,16 @@
 //! 2. **row pass**: per row and prime, twiddle and transform the rows of
 //!    both operands, multiply pointwise, inverse-transform, twiddle back,
 //!    and write over the first operand's row;
-//! 3. **inverse column pass**: inverse column transforms, then the CRT turns
-//!    the three residues of each coefficient into its exact 192-bit value,
-//!    written in place as (low, middle, high) words across the three stores.
+//! 3. **inverse column pass**: inverse column transforms leave the residues
+//!    of the convolution in natural order; the carry pass then reads the
+//!    three residues of each coefficient side by side, and the CRT turns
+//!    them into its exact 192-bit value on the way.
 //!
 //! Each pass is parallel over blocks with rayon; blocks are independent.
+//! The passes work one prime at a time, so the second operand needs one
+//! store, reused for every prime, not three.
 
-use crate::arith::primes::{NttPrime, PRIMES, PRIME_COUNT};
+use crate::arith::primes::{NttPrime, PRIMES};
 use crate::arith::Modulus;
 use crate::carry::U192;
 use crate::crt::Crt;
@@ -156,8 +159,15 @@ impl FourStep {
 
     /// Column pass: reads limbs `0..len` through `limbs(first, out)` (which
     /// fills `out` with limbs `first..first + out.len()`, zeros past the end)
-    /// and leaves the column transforms in `stores` (one per prime).
-    pub fn forward_columns<S, L>(&self, limbs: &L, len: usize, stores: &[S]) -> Result<()>
+    /// and leaves the column transforms modulo prime `primes[j]` in
+    /// `stores[j]`. Reading several primes at once reads the input once.
+    pub fn forward_columns<S, L>(
+        &self,
+        limbs: &L,
+        len: usize,
+        primes: &[usize],
+        stores: &[&S],
+    ) -> Result<()>
     where
         S: Store,
         L: Fn(usize, &mut [u64]) + Sync,
@@ -167,15 +177,19 @@ impl FourStep {
             || (vec![0u64; rows * lanes], vec![0u64; rows * lanes]),
             |(raw, buf), block| {
                 let c0 = block * lanes;
-                for (n1, seg) in raw.chunks_exact_mut(lanes).enumerate() {
-                    let start = cols * n1 + c0;
-                    if start < len {
-                        limbs(start, seg);
-                    } else {
-                        seg.fill(0);
-                    }
+                // Rows past the operand's end are zero; most transforms are
+                // zero-padded to twice the operand, so skip reading them.
+                let live_rows = if len > c0 {
+                    (len - c0).div_ceil(cols).min(rows)
+                } else {
+                    0
+                };
+                for (n1, seg) in raw.chunks_exact_mut(lanes).enumerate().take(live_rows) {
+                    limbs(cols * n1 + c0, seg);
                 }
-                for (t, store) in self.tables.iter().zip(stores) {
+                raw[live_rows * lanes..].fill(0);
+                for (&k, store) in primes.iter().zip(stores) {
+                    let t = &self.tables[k];
                     for (b, r) in buf.iter_mut().zip(raw.iter()) {
                         *b = t.modulus.reduce_lazy(*r);
                     }
@@ -189,11 +203,14 @@ impl FourStep {
         )
     }
 
-    /// Row pass: transforms the rows of both operands, multiplies them
-    /// pointwise and inverse-transforms the product into `a`. With `b` as
-    /// `None` the operand is squared and its second transform skipped.
-    pub fn rows<S: Store>(&self, a: &[S], b: Option<&[S]>) -> Result<()> {
+    /// Row pass for prime `k`: transforms the rows of both operands,
+    /// multiplies them pointwise and inverse-transforms the product into
+    /// `a`. With `b` as `None` the operand is squared and its second
+    /// transform skipped.
+    pub fn rows<S: Store>(&self, k: usize, a: &S, b: Option<&S>) -> Result<()> {
         let Shape { rows, cols, .. } = self.shape;
+        let t = &self.tables[k];
+        let m = &t.modulus;
         (0..rows).into_par_iter().try_for_each_init(
             || RowBuffers {
                 a: vec![0; cols],
@@ -201,101 +218,94 @@ impl FourStep {
                 tw: vec![0; cols],
             },
             |buf, i| {
-                for (k, t) in self.tables.iter().enumerate() {
-                    let m = &t.modulus;
-                    let start = i * cols;
-                    a[k].read(start, &mut buf.a)?;
-                    powers_mont(&mut buf.tw, t.row_step_fwd[i], m);
-                    twiddle(&mut buf.a, &buf.tw, m);
-                    ntt::forward(&mut buf.a, &t.row, m);
-                    match b {
-                        Some(b) => {
-                            b[k].read(start, &mut buf.b)?;
-                            twiddle(&mut buf.b, &buf.tw, m);
-                            ntt::forward(&mut buf.b, &t.row, m);
-                            for (x, y) in buf.a.iter_mut().zip(&buf.b) {
-                                *x = m.mont_mul(m.reduce_2p(*x), *y);
-                            }
-                        }
-                        None => {
-                            for x in buf.a.iter_mut() {
-                                *x = m.mont_mul(m.reduce_2p(*x), *x);
-                            }
+                let start = i * cols;
+                a.read(start, &mut buf.a)?;
+                powers_mont(&mut buf.tw, t.row_step_fwd[i], m);
+                twiddle(&mut buf.a, &buf.tw, m);
+                ntt::forward(&mut buf.a, &t.row, m);
+                match b {
+                    Some(b) => {
+                        b.read(start, &mut buf.b)?;
+                        twiddle(&mut buf.b, &buf.tw, m);
+                        ntt::forward(&mut buf.b, &t.row, m);
+                        for (x, y) in buf.a.iter_mut().zip(&buf.b) {
+                            *x = m.mont_mul(m.reduce_2p(*x), *y);
                         }
                     }
-                    ntt::inverse(&mut buf.a, &t.row, m);
-                    powers_mont(&mut buf.tw, t.row_step_inv[i], m);
-                    twiddle(&mut buf.a, &buf.tw, m);
-                    a[k].write(start, &buf.a)?;
+                    None => {
+                        for x in buf.a.iter_mut() {
+                            *x = m.mont_mul(m.reduce_2p(*x), *x);
+                        }
+                    }
                 }
-                Ok(())
+                ntt::inverse(&mut buf.a, &t.row, m);
+                powers_mont(&mut buf.tw, t.row_step_inv[i], m);
+                twiddle(&mut buf.a, &buf.tw, m);
+                a.write(start, &buf.a)
             },
         )
     }
 
-    /// Inverse column pass with the CRT: afterwards word `j` of stores 0, 1
-    /// and 2 holds the low, middle and high word of coefficient `j`.
-    /// Coefficients at `product_len` and beyond must come out zero; anything
-    /// else means corrupted data and is reported.
-    pub fn inverse_columns<S: Store>(&self, stores: &[S], product_len: usize) -> Result<()> {
+    /// Inverse column pass for prime `k`: afterwards `store` holds the
+    /// (scaled, lazily reduced) residues of the convolution in natural order.
+    pub fn inverse_columns<S: Store>(&self, k: usize, store: &S) -> Result<()> {
         let Shape { rows, cols, lanes } = self.shape;
+        let t = &self.tables[k];
         (0..cols / lanes).into_par_iter().try_for_each_init(
-            || vec![vec![0u64; rows * lanes]; PRIME_COUNT],
-            |bufs, block| {
+            || vec![0u64; rows * lanes],
+            |buf, block| {
                 let c0 = block * lanes;
-                for ((t, store), buf) in self.tables.iter().zip(stores).zip(bufs.iter_mut()) {
-                    for (n1, seg) in buf.chunks_exact_mut(lanes).enumerate() {
-                        store.read(cols * n1 + c0, seg)?;
-                    }
-                    ntt::inverse_lanes(buf, lanes, &t.col, &t.modulus);
+                for (n1, seg) in buf.chunks_exact_mut(lanes).enumerate() {
+                    store.read(cols * n1 + c0, seg)?;
                 }
-                let (b0, rest) = bufs.split_at_mut(1);
-                let (b1, b2) = rest.split_at_mut(1);
-                for (e, ((x0, x1), x2)) in b0[0]
-                    .iter_mut()
-                    .zip(b1[0].iter_mut())
-                    .zip(b2[0].iter_mut())
-                    .enumerate()
-                {
-                    let v = self.crt.combine([*x0, *x1, *x2]);
-                    let pos = cols * (e / lanes) + c0 + e % lanes;
-                    if pos >= product_len && v != [0, 0, 0] {
-                        return Err(Error::Verify {
-                            what: format!(
-                                "transform consistency: coefficient {pos} beyond the product is not zero; \
-                                 memory or scratch data was corrupted"
-                            ),
-                        });
-                    }
-                    *x0 = v[0];
-                    *x1 = v[1];
-                    *x2 = v[2];
-                }
-                for (store, buf) in stores.iter().zip(bufs.iter()) {
-                    for (n1, seg) in buf.chunks_exact(lanes).enumerate() {
-                        store.write(cols * n1 + c0, seg)?;
-                    }
+                ntt::inverse_lanes(buf, lanes, &t.col, &t.modulus);
+                for (n1, seg) in buf.chunks_exact(lanes).enumerate() {
+                    store.write(cols * n1 + c0, seg)?;
                 }
                 Ok(())
             },
         )
     }
 
-    /// Reads coefficients `first..first + out.len()` left by
-    /// [`FourStep::inverse_columns`].
-    pub fn read_coefficients<S: Store>(
-        stores: &[S],
+    /// The exact coefficients `first..first + out.len()` from the residue
+    /// stores left by [`FourStep::inverse_columns`] for every prime.
+    pub fn coefficients<S: Store>(
+        &self,
+        stores: &[&S],
         first: usize,
         out: &mut [U192],
-        tmp: &mut Vec<u64>,
+        tmp: &mut [Vec<u64>; 3],
     ) -> Result<()> {
-        tmp.resize(out.len(), 0);
-        for (w, store) in stores.iter().enumerate().take(3) {
-            store.read(first, tmp)?;
-            for (o, x) in out.iter_mut().zip(tmp.iter()) {
-                o[w] = *x;
-            }
+        for (store, t) in stores.iter().zip(tmp.iter_mut()) {
+            t.resize(out.len(), 0);
+            store.read(first, t)?;
+        }
+        for (i, o) in out.iter_mut().enumerate() {
+            *o = self.crt.combine([tmp[0][i], tmp[1][i], tmp[2][i]]);
         }
         Ok(())
+    }
+
+    /// Checks that the coefficients from `first` to the transform's end
+    /// are zero, as they must be past the product's end: anything else means
+    /// corrupted memory or scratch data.
+    pub fn check_zero_tail<S: Store>(&self, stores: &[&S], first: usize) -> Result<()> {
+        let n = self.shape.len();
+        if first >= n {
+            return Ok(());
+        }
+        let mut out = vec![[0u64; 3]; n - first];
+        let mut tmp: [Vec<u64>; 3] = Default::default();
+        self.coefficients(stores, first, &mut out, &mut tmp)?;
+        match out.iter().position(|v| *v != [0, 0, 0]) {
+            None => Ok(()),
+            Some(i) => Err(Error::Verify {
+                what: format!(
+                    "transform consistency: coefficient {} beyond the product is not zero; \
+                     memory or scratch data was corrupted",
+                    first + i
+                ),
+            }),
+        }
     }
 }

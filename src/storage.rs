@@ -26,40 +26,118 @@ pub trait Store: Sync {
     fn write(&self, start: usize, data: &[u64]) -> Result<()>;
 }
 
+/// An owned, zero-initialised array of words in an anonymous memory
+/// mapping advised for transparent huge pages.
+///
+/// The working arrays are hundreds of megabytes, and with 4 KiB pages every
+/// page costs a fault on first touch and a TLB entry in the strided column
+/// passes. Fresh memory is expensive to touch (in a virtual machine above
+/// all), so the engine reuses these buffers rather than allocating anew.
+pub struct WordBuf {
+    mem: Memory,
+    len: usize,
+}
+
+/// Small buffers come from the heap: a mapping costs system calls that
+/// dominate small products.
+enum Memory {
+    Heap(Vec<u64>),
+    Mapped(memmap2::MmapMut),
+}
+
+/// Buffers from this many words up are mapped rather than heap-allocated.
+const MAP_THRESHOLD_WORDS: usize = 1 << 17;
+
+impl WordBuf {
+    /// A zero-filled buffer of `len` words.
+    pub fn zeroed(len: usize) -> Self {
+        if len < MAP_THRESHOLD_WORDS {
+            return WordBuf {
+                mem: Memory::Heap(vec![0; len]),
+                len,
+            };
+        }
+        let map =
+            memmap2::MmapMut::map_anon(len * 8).expect("anonymous mapping for working memory");
+        #[cfg(target_os = "linux")]
+        {
+            // Advice only: without huge pages the buffer still works.
+            let _ = map.advise(memmap2::Advice::HugePage);
+        }
+        WordBuf {
+            mem: Memory::Mapped(map),
+            len,
+        }
+    }
+
+    /// Shortens the visible length to `len` words (never grows it).
+    pub fn truncate(&mut self, len: usize) {
+        self.len = self.len.min(len);
+    }
+
+    fn as_ptr(&self) -> *const u64 {
+        match &self.mem {
+            Memory::Heap(v) => v.as_ptr(),
+            Memory::Mapped(m) => m.as_ptr() as *const u64,
+        }
+    }
+
+    fn as_mut_ptr(&mut self) -> *mut u64 {
+        match &mut self.mem {
+            Memory::Heap(v) => v.as_mut_ptr(),
+            Memory::Mapped(m) => m.as_mut_ptr() as *mut u64,
+        }
+    }
+}
+
+impl std::ops::Deref for WordBuf {
+    type Target = [u64];
+    fn deref(&self) -> &[u64] {
+        // SAFETY: both memories are aligned for u64 (a Vec<u64>, or a
+        // page-aligned mapping), at least `len` words long, initialised
+        // (zero-filled), and borrowed for no longer than `self`.
+        unsafe { std::slice::from_raw_parts(self.as_ptr(), self.len) }
+    }
+}
+
+impl std::ops::DerefMut for WordBuf {
+    fn deref_mut(&mut self) -> &mut [u64] {
+        let len = self.len;
+        // SAFETY: as in `deref`, and `&mut self` makes the borrow unique.
+        unsafe { std::slice::from_raw_parts_mut(self.as_mut_ptr(), len) }
+    }
+}
+
 /// A store in RAM.
 ///
-/// Words are atomics with relaxed ordering: concurrent passes write disjoint
-/// ranges, and rayon's joins order the passes, so no stronger ordering is
-/// needed, and plain loads and stores are what x86 executes for them. The
-/// copies cost about a cycle a word, small beside the transforms.
-///
-/// The memory is an anonymous mapping advised for transparent huge pages:
-/// the arrays are hundreds of megabytes, and 4 KiB pages cost a fault each
-/// and many TLB misses in the strided column passes.
+/// Words are accessed as atomics with relaxed ordering: concurrent passes
+/// write disjoint ranges, and rayon's joins order the passes, so no stronger
+/// ordering is needed, and plain loads and stores are what x86 executes for
+/// them. The copies cost about a cycle a word, small beside the transforms.
 pub struct RamStore {
-    map: memmap2::MmapMut,
-    len: usize,
+    buf: WordBuf,
 }
 
 impl RamStore {
     /// A zero-filled store of `len` words.
     pub fn zeroed(len: usize) -> Self {
-        let bytes = (len * 8).max(8);
-        let map = memmap2::MmapMut::map_anon(bytes).expect("anonymous mapping for working memory");
-        #[cfg(target_os = "linux")]
-        {
-            // Advice only: without huge pages the store still works.
-            let _ = map.advise(memmap2::Advice::HugePage);
+        RamStore {
+            buf: WordBuf::zeroed(len),
         }
-        RamStore { map, len }
     }
 
     fn words(&self) -> &[AtomicU64] {
-        // SAFETY: the mapping is page-aligned, at least `len * 8` bytes long,
-        // zero-initialised, and lives as long as `self`; AtomicU64 has the
-        // size and alignment of u64 and any bit pattern is valid, and its
-        // interior mutability makes shared writes through `&self` sound.
-        unsafe { std::slice::from_raw_parts(self.map.as_ptr() as *const AtomicU64, self.len) }
+        // SAFETY: the buffer is aligned, initialised and `len` words long;
+        // AtomicU64 has the size, alignment and bit validity of u64, and its
+        // interior mutability makes shared writes through `&self` sound. No
+        // plain `&[u64]` to it exists while `self` is borrowed, since
+        // `into_words` consumes the store.
+        unsafe { std::slice::from_raw_parts(self.buf.as_ptr() as *const AtomicU64, self.buf.len) }
+    }
+
+    /// The words as a plain buffer, for reuse once the passes are done.
+    pub fn into_words(self) -> WordBuf {
+        self.buf
     }
 
     /// Copies the whole store out (for tests and small products).
@@ -73,7 +151,7 @@ impl RamStore {
 
 impl Store for RamStore {
     fn len(&self) -> usize {
-        self.len
+        self.buf.len
     }
 
     fn read(&self, start: usize, out: &mut [u64]) -> Result<()> {
