@@ -8,6 +8,7 @@ use crate::radix::Radix;
 use crate::schoolbook;
 use crate::storage::{RamStore, WordBuf};
 use crate::Result;
+use rayon::prelude::*;
 
 /// A source of limbs: `fill_limbs(first, out)` writes limbs
 /// `first..first + out.len()` into `out`, zeros past the operand's end.
@@ -30,9 +31,13 @@ impl LimbSource for Vec<u64> {
     }
 }
 
+/// All `len` limbs of `src`, read in parallel chunks.
 fn read_all<L: LimbSource + ?Sized>(src: &L, len: usize) -> Vec<u64> {
+    const CHUNK: usize = 1 << 16;
     let mut v = vec![0u64; len];
-    src.fill_limbs(0, &mut v);
+    v.par_chunks_mut(CHUNK)
+        .enumerate()
+        .for_each(|(i, chunk)| src.fill_limbs(i * CHUNK, chunk));
     v
 }
 
@@ -96,9 +101,12 @@ where
         &a_refs,
     )?;
     let spare = (!plan.square).then(|| RamStore::zeroed(n.max(plan.product_limbs)));
+    // B is read once per prime: decode it once (text parsing is not free),
+    // and let the column passes copy from the decoded limbs.
+    let b_limbs = if plan.square { Vec::new() } else { read_all(b, lb) };
     for (k, store) in stores_a.iter().enumerate() {
         if let Some(spare) = &spare {
-            fs.forward_columns(&|f, o: &mut [u64]| b.fill_limbs(f, o), lb, &[k], &[spare])?;
+            fs.forward_columns(&|f, o: &mut [u64]| b_limbs.fill_limbs(f, o), lb, &[k], &[spare])?;
         }
         fs.rows(k, store, spare.as_ref())?;
         fs.inverse_columns(k, store)?;

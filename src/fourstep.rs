@@ -76,10 +76,16 @@ impl PrimeTables {
         let wi = m.inv(w);
         let bits = shape.rows.trailing_zeros();
         let (mut fwd, mut inv) = (vec![0; shape.rows], vec![0; shape.rows]);
-        for i in 0..shape.rows {
-            let k1 = bit_reverse(i, bits) as u64;
-            fwd[i] = m.to_mont(m.pow(w, k1));
-            inv[i] = m.to_mont(m.pow(wi, k1));
+        // Successive powers w^k1, placed at the row where the column
+        // transform leaves frequency k1.
+        let (mut x, mut xi) = (m.mont_one, m.mont_one);
+        let (w_m, wi_m) = (m.to_mont(w), m.to_mont(wi));
+        for k1 in 0..shape.rows {
+            let i = bit_reverse(k1, bits);
+            fwd[i] = x;
+            inv[i] = xi;
+            x = m.mont_mul(x, w_m);
+            xi = m.mont_mul(xi, wi_m);
         }
         PrimeTables {
             modulus: m,
