@@ -1,0 +1,803 @@
+//! The multiplication engine against num-bigint, in both radixes: random
+//! sizes up to a million limbs, squares, long-by-short products, adversarial
+//! limb patterns, the planner's thresholds and transform-length boundaries,
+//! and every forced path on the same operands.
+//!
+//! Every expected value comes from num-bigint applied to the operands'
+//! limbs; no test compares the engine only with itself. Operands are drawn
+//! from fixed seeds, so a failure reproduces exactly.
+
+mod common;
+
+use common::*;
+use num_bigint::BigUint;
+use vastmul::engine::{multiply, multiply_forced};
+use vastmul::plan::{plan, shape_for, Algorithm, Force, Request, SCHOOLBOOK_ALWAYS};
+use vastmul::radix::DEC_BASE;
+use vastmul::Radix;
+
+const RADIXES: [Radix; 2] = [Radix::Binary, Radix::Decimal];
+const FORCES: [Force; 3] = [Force::Schoolbook, Force::Ntt, Force::Auto];
+
+/// A seed that differs per radix, so the two radixes never see the same
+/// stream reinterpreted.
+fn seed(radix: Radix, n: u64) -> u64 {
+    match radix {
+        Radix::Binary => n,
+        Radix::Decimal => n ^ 0x5eed_0000_d0d0_0000,
+    }
+}
+
+// ---------------------------------------------------------------------------
+// The reference helpers themselves: a wrong conversion would make every
+// decimal comparison meaningless, so each fast one is checked against a
+// direct one.
+// ---------------------------------------------------------------------------
+
+/// The divide-and-conquer decimal conversion splits at powers of two and
+/// switches to Horner below 32 limbs: lengths on both sides of each split,
+/// and leading zero limbs, must give Horner's value, and converting back
+/// must give the trimmed limbs.
+#[test]
+fn decimal_conversion_matches_horner() {
+    let mut rng = Rng::new(1);
+    let mut lengths: Vec<usize> = vec![
+        0, 1, 2, 31, 32, 33, 63, 64, 65, 127, 128, 129, 1000, 2047, 2048, 2049,
+    ];
+    lengths.extend((0..20).map(|_| rng.range(1, 5000)));
+    for len in lengths {
+        let mut limbs = rng.limbs(len, Radix::Decimal);
+        // Maximal digits at both ends exercise the carries of the sums.
+        if len >= 2 {
+            limbs[0] = DEC_BASE - 1;
+            limbs[len - 1] = DEC_BASE - 1;
+        }
+        let fast = decimal_to_big(&limbs);
+        assert_eq!(
+            fast,
+            decimal_to_big_horner(&limbs),
+            "to BigUint, {len} limbs"
+        );
+        assert_eq!(big_to_decimal(&fast), limbs, "back to limbs, {len} limbs");
+        assert_eq!(
+            big_to_decimal_direct(&fast),
+            limbs,
+            "direct back, {len} limbs"
+        );
+        let mut padded = limbs.clone();
+        padded.extend(std::iter::repeat(0).take(37));
+        assert_eq!(decimal_to_big(&padded), fast, "leading zeros, {len} limbs");
+    }
+    // The cached powers are the values the limb vectors [0; 2^j] ++ [1] mean.
+    for j in 0..8 {
+        assert_eq!(
+            *decimal_power(j),
+            BigUint::from(10u8).pow(19 << j),
+            "10^(19*2^{j})"
+        );
+    }
+    assert_eq!(decimal_to_big(&[]), BigUint::default());
+}
+
+/// Binary limbs through 32-bit digits must agree with shifting limbs in
+/// one at a time, and round-trip.
+#[test]
+fn binary_conversion_matches_shifts() {
+    let mut rng = Rng::new(2);
+    for len in [0usize, 1, 2, 3, 100, 1001] {
+        let limbs = rng.limbs(len, Radix::Binary);
+        let mut acc = BigUint::default();
+        for &l in limbs.iter().rev() {
+            acc = (acc << 64u32) + l;
+        }
+        assert_eq!(binary_to_big(&limbs), acc, "{len} limbs");
+        assert_eq!(big_to_binary(&acc), limbs, "{len} limbs back");
+    }
+    assert_eq!(big_to_binary(&BigUint::default()), Vec::<u64>::new());
+}
+
+/// The generator's decimal limbs must stay below 10^19 and still reach the
+/// top of the range, or decimal tests would silently avoid the largest
+/// digits.
+#[test]
+fn generated_decimal_limbs_cover_the_digit_range() {
+    let mut rng = Rng::new(3);
+    let limbs = rng.limbs(100_000, Radix::Decimal);
+    assert!(limbs.iter().all(|&l| l < DEC_BASE));
+    assert!(limbs.iter().any(|&l| l > DEC_BASE / 10 * 9));
+    assert!(limbs.iter().any(|&l| l < DEC_BASE / 10));
+    // Same seed, same stream.
+    assert_eq!(Rng::new(3).limbs(100_000, Radix::Decimal), limbs);
+}
+
+/// The fingerprint and block checks used for the largest decimal products
+/// must reject a product with a single wrong limb, wherever it is.
+#[test]
+fn large_product_checks_reject_a_corrupted_limb() {
+    let mut rng = Rng::new(4);
+    let a = rng.limbs(20_000, Radix::Decimal);
+    let b = rng.limbs(40, Radix::Decimal);
+    let good = from_big(&(decimal_to_big(&a) * decimal_to_big(&b)), Radix::Decimal);
+    let fp = Fingerprint::new(99);
+    let long = LongDecimal::new(&a);
+    assert!(fp.agrees(&good, &a, &b, Radix::Decimal));
+    assert_eq!(long.mismatch(&good, &b), None);
+    for pos in [0, 127, 128, 2048, 10_000, good.len() - 2, good.len() - 1] {
+        let mut bad = good.clone();
+        bad[pos] = if bad[pos] == 0 { 1 } else { bad[pos] - 1 };
+        assert!(
+            !fp.agrees(&bad, &a, &b, Radix::Decimal),
+            "fingerprint missed limb {pos}"
+        );
+        let found = long.mismatch(&bad, &b);
+        assert!(found.is_some(), "block check missed limb {pos}");
+        if pos < 10_000 {
+            assert_eq!(
+                found.unwrap(),
+                format!("limb {pos}: got {}, expected {}", bad[pos], good[pos])
+            );
+        }
+    }
+    // A product one limb short, as a dropped top carry would leave it.
+    let short = &good[..good.len() - 1];
+    assert!(!fp.agrees(short, &a, &b, Radix::Decimal));
+    assert!(long.mismatch(short, &b).is_some());
+}
+
+// ---------------------------------------------------------------------------
+// Random sizes.
+// ---------------------------------------------------------------------------
+
+/// Random operand lengths, log-uniform so every octave from one limb to
+/// about 10^5 is visited, in both radixes, on the planner's own choice and
+/// on the forced NTT (which Auto rarely picks for unbalanced sizes).
+#[test]
+fn random_sizes_match_reference() {
+    for radix in RADIXES {
+        let mut rng = Rng::new(seed(radix, 10));
+        let max = match radix {
+            Radix::Binary => 120_000,
+            Radix::Decimal => 40_000,
+        };
+        for i in 0..60 {
+            let la = rng.log_uniform(1, max);
+            let lb = rng.log_uniform(1, max);
+            let a = rng.limbs(la, radix);
+            let b = rng.limbs(lb, radix);
+            let force = if i % 2 == 0 { Force::Auto } else { Force::Ntt };
+            check(&a, &b, radix, force, &format!("random #{i} {la}x{lb}"));
+        }
+    }
+}
+
+/// One balanced million-limb binary product, checked limb for limb: the
+/// transform length (2^21) and the coefficient sizes are those of real
+/// workloads.
+#[test]
+fn million_limb_binary_product_matches_reference() {
+    let mut rng = Rng::new(seed(Radix::Binary, 11));
+    let a = rng.limbs(1_000_000, Radix::Binary);
+    let b = rng.limbs(1_000_000, Radix::Binary);
+    let got = multiply(&a, &b, Radix::Binary);
+    assert_product(&got, &a, &b, Radix::Binary, "1e6 x 1e6 binary");
+}
+
+/// One balanced million-limb decimal product, compared whole: the
+/// operands and the two-million-limb product go through the
+/// divide-and-conquer conversion, on two threads next to num-bigint's
+/// product. The most expensive test here (about 40 CPU-seconds), and the
+/// only one that checks a decimal product of this size exactly.
+#[test]
+fn million_limb_decimal_product_matches_reference() {
+    let mut rng = Rng::new(seed(Radix::Decimal, 11));
+    let a = rng.limbs(1_000_000, Radix::Decimal);
+    let b = rng.limbs(1_000_000, Radix::Decimal);
+    let got = multiply(&a, &b, Radix::Decimal);
+    assert_product(&got, &a, &b, Radix::Decimal, "1e6 x 1e6 decimal");
+}
+
+// ---------------------------------------------------------------------------
+// Squares.
+// ---------------------------------------------------------------------------
+
+/// `a == b` takes the squaring path (one forward transform): it must give
+/// the same as a general product, whether the operands are one slice, equal
+/// copies, or equal after trimming different numbers of leading zeros.
+#[test]
+fn squares_match_reference() {
+    for radix in RADIXES {
+        let mut rng = Rng::new(seed(radix, 20));
+        let sizes: &[usize] = match radix {
+            Radix::Binary => &[1, 2, 31, 32, 33, 100, 1000, 4097, 65_536, 300_000],
+            Radix::Decimal => &[1, 2, 31, 32, 33, 100, 1000, 4097, 65_536],
+        };
+        for &n in sizes {
+            let a = rng.limbs(n, radix);
+            let expected = to_big(&a, radix).pow(2);
+            let same = |got: &[u64], how: &str| {
+                let what = format!("square {n} {how} [{}]", radix.name());
+                assert_well_formed(got, radix, &what);
+                assert!(
+                    to_big(got, radix) == expected,
+                    "{what}: differs from num-bigint"
+                );
+            };
+            same(&multiply(&a, &a, radix), "auto");
+            same(&multiply_forced(&a, &a, radix, Force::Ntt), "ntt");
+            if n <= 4097 {
+                same(
+                    &multiply_forced(&a, &a, radix, Force::Schoolbook),
+                    "schoolbook",
+                );
+            }
+            // Equal content in two allocations, with different leading zeros.
+            let mut b = a.clone();
+            b.extend([0, 0, 0]);
+            let mut c = a.clone();
+            c.push(0);
+            same(&multiply_forced(&c, &b, radix, Force::Ntt), "padded copies");
+        }
+    }
+}
+
+/// Million-limb squares, in both radixes, checked by residues and exactly
+/// on their low 4096 limbs: an exact check would cost another million-limb
+/// num-bigint product each (and a two-million-limb decimal conversion), on
+/// top of the two exact balanced products above.
+#[test]
+fn million_limb_squares_match_reference_residues() {
+    let fp = Fingerprint::new(21);
+    for radix in RADIXES {
+        let mut rng = Rng::new(seed(radix, 21));
+        let a = rng.limbs(1_000_000, radix);
+        let got = multiply(&a, &a, radix);
+        fp.assert_product(
+            &got,
+            &a,
+            &a,
+            radix,
+            &format!("1e6 square [{}]", radix.name()),
+        );
+        assert_low_limbs(
+            &got,
+            &a,
+            &a,
+            radix,
+            4096,
+            &format!("1e6 square [{}]", radix.name()),
+        );
+    }
+}
+
+// ---------------------------------------------------------------------------
+// Long by short.
+// ---------------------------------------------------------------------------
+
+/// Short operand lengths for the long-by-short products: both sides of
+/// [`SCHOOLBOOK_ALWAYS`] and of the lane width, powers of two and their
+/// neighbours, up to 100.
+const SHORT_LENGTHS: [usize; 11] = [1, 2, 3, 16, 31, 32, 33, 63, 64, 65, 100];
+
+/// A million limbs times `k` limbs, `k` up to 100, in binary: the planner
+/// keeps these on schoolbook, so the forced NTT is run as well at a few `k`
+/// (a transform of 2^20 points holding a nearly empty operand). The short
+/// operand is passed first and second.
+#[test]
+fn million_by_short_binary_matches_reference() {
+    let radix = Radix::Binary;
+    let mut rng = Rng::new(seed(radix, 30));
+    let a = rng.limbs(1_000_000, radix);
+    let big_a = binary_to_big(&a);
+    for k in SHORT_LENGTHS {
+        let b = rng.limbs(k, radix);
+        let expected = big_to_binary(&(&big_a * binary_to_big(&b)));
+        let forces: &[Force] = if [1, 33, 100].contains(&k) {
+            &[Force::Auto, Force::Ntt]
+        } else {
+            &[Force::Auto]
+        };
+        for &force in forces {
+            let got = multiply_forced(&a, &b, radix, force);
+            let what = format!("1e6 x {k} binary {force:?}");
+            assert_well_formed(&got, radix, &what);
+            assert_limbs_eq(&got, &expected, &what);
+        }
+        if k % 2 == 1 {
+            let got = multiply(&b, &a, radix);
+            assert_limbs_eq(&got, &expected, &format!("{k} x 1e6 binary"));
+        }
+    }
+}
+
+/// The decimal counterpart of [`million_by_short_binary_matches_reference`],
+/// checked exactly block by block (linear in the long operand).
+#[test]
+fn million_by_short_decimal_matches_reference() {
+    let radix = Radix::Decimal;
+    let mut rng = Rng::new(seed(radix, 30));
+    let a = rng.limbs(1_000_000, radix);
+    let long = LongDecimal::new(&a);
+    for k in SHORT_LENGTHS {
+        let b = rng.limbs(k, radix);
+        let forces: &[Force] = if [1, 33, 100].contains(&k) {
+            &[Force::Auto, Force::Ntt]
+        } else {
+            &[Force::Auto]
+        };
+        for &force in forces {
+            let got = multiply_forced(&a, &b, radix, force);
+            long.assert_product(&got, &b, &format!("1e6 x {k} decimal {force:?}"));
+        }
+        if k == 64 {
+            let got = multiply(&b, &a, radix);
+            long.assert_product(&got, &b, &format!("{k} x 1e6 decimal"));
+        }
+    }
+}
+
+// ---------------------------------------------------------------------------
+// Adversarial limb patterns.
+// ---------------------------------------------------------------------------
+
+/// All-maximal limbs (`B^n - 1`: u64::MAX in binary, 10^19 - 1 in decimal)
+/// give the largest convolution coefficients and products whose upper half
+/// is one long run of maximal limbs, which every carry must ripple through.
+#[test]
+fn all_maximal_limbs_match_reference() {
+    for radix in RADIXES {
+        for (la, lb) in [
+            (1, 1),
+            (2, 3),
+            (31, 31),
+            (33, 33),
+            (64, 1000),
+            (1000, 1000),
+            (4096, 4096),
+            (5000, 77),
+        ] {
+            let a = radix_power_minus_one(la, radix);
+            let b = radix_power_minus_one(lb, radix);
+            check_all_paths(&a, &b, radix, &format!("max limbs {la}x{lb}"));
+        }
+        for (la, lb) in [(50_000, 50_000), (100_000, 3)] {
+            let a = radix_power_minus_one(la, radix);
+            let b = radix_power_minus_one(lb, radix);
+            for force in [Force::Auto, Force::Ntt] {
+                check(&a, &b, radix, force, &format!("max limbs {la}x{lb}"));
+            }
+        }
+    }
+}
+
+/// Million-limb all-maximal operands: the largest coefficients an input of
+/// this size can produce (about 2^148 in binary) must come back exactly
+/// through the three-prime reconstruction. Binary is compared with
+/// `(B^n - 1)(B^(n-1) - 1) = B^(2n-1) - B^n - B^(n-1) + 1` evaluated by
+/// num-bigint, the decimal square by residues and its exact low limbs.
+#[test]
+fn million_limb_all_maximal_matches_reference() {
+    let n = 1_000_000;
+    let ones = radix_power_minus_one(n, Radix::Binary);
+    let other = radix_power_minus_one(n - 1, Radix::Binary);
+    let got = multiply(&ones, &other, Radix::Binary);
+    let one = BigUint::from(1u8);
+    let bits = |k: usize| 64 * k as u64;
+    let expected = (&one << bits(2 * n - 1)) + &one - (&one << bits(n)) - (&one << bits(n - 1));
+    assert_well_formed(&got, Radix::Binary, "1e6 max limbs binary");
+    assert_limbs_eq(&got, &big_to_binary(&expected), "1e6 max limbs binary");
+
+    let nines = radix_power_minus_one(n, Radix::Decimal);
+    let got = multiply(&nines, &nines, Radix::Decimal);
+    Fingerprint::new(40).assert_product(
+        &got,
+        &nines,
+        &nines,
+        Radix::Decimal,
+        "1e6 max limbs decimal",
+    );
+    // (10^19n - 1)^2: limbs 1, then n - 1 zeros, 10^19 - 2, n - 1 nines.
+    assert_eq!(got.len(), 2 * n);
+    assert_low_limbs(
+        &got,
+        &nines,
+        &nines,
+        Radix::Decimal,
+        4096,
+        "1e6 max limbs decimal",
+    );
+}
+
+/// `B^k - 1`, `B^k` and `B^k + 1` against each other: sparse operands,
+/// exact powers and maximal runs, whose products are long runs of zero or
+/// maximal limbs with isolated limbs at the ends, on every path.
+#[test]
+fn radix_powers_and_neighbours_match_reference() {
+    for radix in RADIXES {
+        let ks = [1usize, 2, 32, 33, 1000, 4097];
+        for &k in &ks {
+            for &j in &ks {
+                let left = [
+                    radix_power_minus_one(k, radix),
+                    radix_power(k),
+                    radix_power_plus_one(k),
+                ];
+                let right = [
+                    radix_power_minus_one(j, radix),
+                    radix_power(j),
+                    radix_power_plus_one(j),
+                ];
+                for (x, a) in left.iter().enumerate() {
+                    for (y, b) in right.iter().enumerate() {
+                        check_all_paths(
+                            a,
+                            b,
+                            radix,
+                            &format!(
+                                "B^{k}{} * B^{j}{}",
+                                ["-1", "", "+1"][x],
+                                ["-1", "", "+1"][y]
+                            ),
+                        );
+                    }
+                }
+            }
+        }
+    }
+}
+
+/// An operand whose only non-zero limb is its top one (`t * B^z`): the
+/// engine must not mistake the low zero run for an empty operand, and the
+/// product's low `z` limbs must be zero.
+#[test]
+fn single_top_limb_operands_match_reference() {
+    for radix in RADIXES {
+        let mut rng = Rng::new(seed(radix, 50));
+        for z in [1usize, 40, 5000] {
+            for top in [1, radix.max_limb(), rng.limb(radix).max(1)] {
+                let mut a = vec![0u64; z];
+                a.push(top);
+                for lb in [1usize, 33, 3000] {
+                    let b = rng.limbs(lb, radix);
+                    check_all_paths(&a, &b, radix, &format!("{top}*B^{z} x {lb}"));
+                }
+                check_all_paths(&a, &a, radix, &format!("({top}*B^{z})^2"));
+            }
+        }
+    }
+}
+
+/// Leading zero limbs must be ignored: on every path the product equals
+/// num-bigint's product of the significant limbs and comes back trimmed.
+/// One case hides 32 significant limbs (the schoolbook threshold) under
+/// 1000 zeros, where counting the zeros would change the planner's choice.
+#[test]
+fn leading_zero_limbs_are_ignored() {
+    for radix in RADIXES {
+        let mut rng = Rng::new(seed(radix, 60));
+        for (la, za, lb, zb) in [
+            (1, 1, 1, 0),
+            (32, 1000, 32, 1),
+            (33, 5, 40, 500),
+            (3000, 7, 2000, 2),
+            (1, 4000, 5, 3),
+        ] {
+            let mut a = rng.limbs(la, radix);
+            let mut b = rng.limbs(lb, radix);
+            let expected = to_big(&a, radix) * to_big(&b, radix);
+            a.resize(la + za, 0);
+            b.resize(lb + zb, 0);
+            for force in FORCES {
+                let what = format!(
+                    "{la}+{za} zeros x {lb}+{zb} zeros {force:?} [{}]",
+                    radix.name()
+                );
+                let got = multiply_forced(&a, &b, radix, force);
+                assert_well_formed(&got, radix, &what);
+                assert!(
+                    to_big(&got, radix) == expected,
+                    "{what}: differs from num-bigint"
+                );
+            }
+        }
+    }
+}
+
+/// A zero operand, however it is written (no limbs, one zero limb, many
+/// zero limbs), gives the empty product on every path.
+#[test]
+fn zero_operands_give_an_empty_product() {
+    for radix in RADIXES {
+        let mut rng = Rng::new(seed(radix, 70));
+        let x = rng.limbs(100, radix);
+        let zeros: [Vec<u64>; 3] = [vec![], vec![0], vec![0; 1000]];
+        for z in &zeros {
+            for force in FORCES {
+                for (a, b) in [(z, &x), (&x, z), (z, z)] {
+                    let got = multiply_forced(a, b, radix, force);
+                    assert!(
+                        got.is_empty(),
+                        "{} x {} limbs {force:?}: {got:?}",
+                        a.len(),
+                        b.len()
+                    );
+                    // And num-bigint agrees that it is zero.
+                    assert_eq!(to_big(a, radix) * to_big(b, radix), BigUint::default());
+                }
+            }
+        }
+    }
+}
+
+/// Multiplying by one returns the other operand: the smallest non-trivial
+/// product, on every path.
+#[test]
+fn one_is_the_identity() {
+    for radix in RADIXES {
+        let mut rng = Rng::new(seed(radix, 80));
+        for n in [1usize, 2, 33, 5000] {
+            let x = rng.limbs(n, radix);
+            check_all_paths(&x, &[1], radix, &format!("{n} x 1"));
+            check_all_paths(&[1], &x, radix, &format!("1 x {n}"));
+        }
+    }
+}
+
+// ---------------------------------------------------------------------------
+// Thresholds and transform shapes.
+// ---------------------------------------------------------------------------
+
+/// Short operands of `SCHOOLBOOK_ALWAYS - 1`, `SCHOOLBOOK_ALWAYS` and
+/// `SCHOOLBOOK_ALWAYS + 1` limbs, against long operands of several sizes,
+/// on every path: the planner switches there, so both sides must be right.
+#[test]
+fn schoolbook_threshold_lengths_match_reference() {
+    for radix in RADIXES {
+        let mut rng = Rng::new(seed(radix, 90));
+        for short in [
+            SCHOOLBOOK_ALWAYS - 1,
+            SCHOOLBOOK_ALWAYS,
+            SCHOOLBOOK_ALWAYS + 1,
+        ] {
+            for long in [short, short + 1, 1000, 20_000] {
+                let a = rng.limbs(short, radix);
+                let b = rng.limbs(long, radix);
+                check_all_paths(&a, &b, radix, &format!("threshold {short}x{long}"));
+            }
+        }
+    }
+}
+
+/// The transform length the planner must pick for `coefficients`
+/// coefficients: the smallest power of two holding them (at least 2).
+fn expected_transform_len(coefficients: usize) -> usize {
+    coefficients.max(2).next_power_of_two()
+}
+
+/// The NTT shape the planner gives a forced-NTT product of `la x lb` limbs.
+fn planned_shape(la: usize, lb: usize, radix: Radix) -> vastmul::fourstep::Shape {
+    let p = plan(&Request {
+        a_limbs: la,
+        b_limbs: lb,
+        radix,
+        square: false,
+        threads: 2,
+        force: Force::Ntt,
+    })
+    .expect("plan");
+    match p.algorithm {
+        Algorithm::Ntt { shape } => shape,
+        other => panic!("{la}x{lb}: forced NTT planned as {other:?}"),
+    }
+}
+
+/// Products with `la + lb - 1 = 2^k - 1, 2^k, 2^k + 1` coefficients: a
+/// transform exactly full, and one coefficient over, which must move to the
+/// next length (a cyclic transform one point short would wrap the top
+/// coefficient onto the bottom one). Every power of two up to 2^16 with
+/// balanced operands, so that every four-step rows/columns split and every
+/// lane width below 16 is used. The planned length is checked too.
+#[test]
+fn transform_length_boundaries_balanced_match_reference() {
+    for radix in RADIXES {
+        let mut rng = Rng::new(seed(radix, 100));
+        for k in 1..=16u32 {
+            let p = 1usize << k;
+            for coefficients in [p - 1, p, p + 1] {
+                let la = coefficients.div_ceil(2).max(1);
+                let lb = coefficients + 1 - la;
+                assert_eq!(
+                    planned_shape(la, lb, radix).len(),
+                    expected_transform_len(coefficients),
+                    "{la}x{lb}"
+                );
+                let a = rng.limbs(la, radix);
+                let b = rng.limbs(lb, radix);
+                for force in [Force::Ntt, Force::Auto] {
+                    check(
+                        &a,
+                        &b,
+                        radix,
+                        force,
+                        &format!("{coefficients} coefficients, {la}x{lb}"),
+                    );
+                }
+            }
+        }
+    }
+}
+
+/// The same boundaries with one long and one short operand, which makes
+/// long transforms cheap to check: 2^20 and 2^20 + 1 coefficients in both
+/// radixes (decimal checked block by block), and 2^23 + 1 in binary, the
+/// first length (2^24 points) whose four-step split is no longer near the
+/// square root: its rows stay at the planner's maximum while the columns
+/// keep growing, so the rows are checked to be shorter than half the
+/// columns there.
+#[test]
+fn transform_length_boundaries_long_by_short_match_reference() {
+    let mut rng = Rng::new(seed(Radix::Binary, 110));
+    let short = 41;
+    for coefficients in [1 << 20, (1 << 20) + 1, (1 << 23) + 1] {
+        let la = coefficients + 1 - short;
+        let shape = planned_shape(la, short, Radix::Binary);
+        assert_eq!(shape.len(), expected_transform_len(coefficients));
+        if coefficients > 1 << 23 {
+            assert!(
+                shape.rows < shape.cols / 2,
+                "{shape:?} is not the capped split"
+            );
+        }
+        let a = rng.limbs(la, Radix::Binary);
+        let b = rng.limbs(short, Radix::Binary);
+        let what = format!("{coefficients} coefficients, {la}x{short}");
+        check(&a, &b, Radix::Binary, Force::Ntt, &what);
+    }
+    let mut rng = Rng::new(seed(Radix::Decimal, 110));
+    for k in [12u32, 20] {
+        let p = 1usize << k;
+        for coefficients in [p, p + 1] {
+            let la = coefficients + 1 - short;
+            let a = rng.limbs(la, Radix::Decimal);
+            let b = rng.limbs(short, Radix::Decimal);
+            let got = multiply_forced(&a, &b, Radix::Decimal, Force::Ntt);
+            LongDecimal::new(&a).assert_product(
+                &got,
+                &b,
+                &format!("{coefficients} coefficients, {la}x{short} decimal"),
+            );
+        }
+    }
+}
+
+/// The shape's contract, over lengths on and beside every power of two up
+/// to 2^30: a power-of-two length covering the request with less than
+/// double waste, rows times columns, lanes dividing the columns, and rows
+/// not exceeding columns.
+#[test]
+fn shapes_cover_every_length_minimally() {
+    for k in 0..=30u32 {
+        let p = 1usize << k;
+        for min_len in [p.saturating_sub(1).max(1), p, p + 1] {
+            let s = shape_for(min_len);
+            assert_eq!(
+                s.len(),
+                expected_transform_len(min_len),
+                "len for {min_len}"
+            );
+            assert_eq!(s.rows * s.cols, s.len(), "rows*cols for {min_len}");
+            assert!(
+                s.rows.is_power_of_two() && s.cols.is_power_of_two(),
+                "{min_len}: {s:?}"
+            );
+            assert!(s.rows <= s.cols, "{min_len}: {s:?}");
+            assert!(s.lanes >= 1 && s.cols % s.lanes == 0, "{min_len}: {s:?}");
+        }
+    }
+}
+
+// ---------------------------------------------------------------------------
+// Every path on the same operands.
+// ---------------------------------------------------------------------------
+
+/// Schoolbook, NTT and Auto on identical operands, each against num-bigint,
+/// at sizes from one limb to a few thousand and lopsided shapes.
+#[test]
+fn every_forced_path_matches_reference() {
+    for radix in RADIXES {
+        let mut rng = Rng::new(seed(radix, 120));
+        for (la, lb) in [
+            (1, 1),
+            (1, 2),
+            (2, 2),
+            (3, 70),
+            (16, 17),
+            (64, 64),
+            (65, 63),
+            (100, 1000),
+            (999, 1000),
+            (4097, 33),
+            (5000, 5000),
+            (20_000, 3),
+            (1, 20_000),
+        ] {
+            let a = rng.limbs(la, radix);
+            let b = rng.limbs(lb, radix);
+            check_all_paths(&a, &b, radix, &format!("paths {la}x{lb}"));
+        }
+    }
+}
+
+// ---------------------------------------------------------------------------
+// The planner's choices.
+// ---------------------------------------------------------------------------
+
+fn auto_plan(la: usize, lb: usize, radix: Radix, square: bool) -> Algorithm {
+    plan(&Request {
+        a_limbs: la,
+        b_limbs: lb,
+        radix,
+        square,
+        threads: 2,
+        force: Force::Auto,
+    })
+    .expect("plan")
+    .algorithm
+}
+
+/// Auto picks schoolbook for tiny products and for any product whose short
+/// operand is at most `SCHOOLBOOK_ALWAYS` limbs (however long the other),
+/// the NTT for large balanced products with a shape holding the product,
+/// and nothing for a zero operand; the same in both radixes and for squares.
+#[test]
+fn planner_auto_choices_match_expectations() {
+    for radix in RADIXES {
+        for square in [false, true] {
+            assert_eq!(auto_plan(1, 1, radix, square), Algorithm::Schoolbook);
+            assert_eq!(auto_plan(10, 10, radix, square), Algorithm::Schoolbook);
+            assert_eq!(
+                auto_plan(SCHOOLBOOK_ALWAYS, 1 << 30, radix, square),
+                Algorithm::Schoolbook
+            );
+            assert_eq!(
+                auto_plan(1 << 30, SCHOOLBOOK_ALWAYS, radix, square),
+                Algorithm::Schoolbook
+            );
+            assert_eq!(
+                auto_plan(1_000_000, 5, radix, square),
+                Algorithm::Schoolbook
+            );
+            assert_eq!(auto_plan(0, 100, radix, square), Algorithm::Zero);
+            assert_eq!(auto_plan(100, 0, radix, square), Algorithm::Zero);
+            for (la, lb) in [(100_000, 100_000), (1_000_000, 1_000_000), (4096, 4096)] {
+                match auto_plan(la, lb, radix, square) {
+                    Algorithm::Ntt { shape } => {
+                        assert_eq!(
+                            shape.len(),
+                            expected_transform_len(la + lb - 1),
+                            "{la}x{lb}"
+                        )
+                    }
+                    other => panic!("{la}x{lb}: Auto planned {other:?}, expected the NTT"),
+                }
+            }
+        }
+        // Forcing overrides the choice in both directions.
+        let forced = |la, lb, force| {
+            plan(&Request {
+                a_limbs: la,
+                b_limbs: lb,
+                radix,
+                square: false,
+                threads: 1,
+                force,
+            })
+            .expect("plan")
+            .algorithm
+        };
+        assert_eq!(
+            forced(100_000, 100_000, Force::Schoolbook),
+            Algorithm::Schoolbook
+        );
+        assert!(matches!(forced(1, 1, Force::Ntt), Algorithm::Ntt { shape } if shape.len() == 2));
+    }
+}
