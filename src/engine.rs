@@ -103,10 +103,19 @@ where
     let spare = (!plan.square).then(|| RamStore::zeroed(n.max(plan.product_limbs)));
     // B is read once per prime: decode it once (text parsing is not free),
     // and let the column passes copy from the decoded limbs.
-    let b_limbs = if plan.square { Vec::new() } else { read_all(b, lb) };
+    let b_limbs = if plan.square {
+        Vec::new()
+    } else {
+        read_all(b, lb)
+    };
     for (k, store) in stores_a.iter().enumerate() {
         if let Some(spare) = &spare {
-            fs.forward_columns(&|f, o: &mut [u64]| b_limbs.fill_limbs(f, o), lb, &[k], &[spare])?;
+            fs.forward_columns(
+                &|f, o: &mut [u64]| b_limbs.fill_limbs(f, o),
+                lb,
+                &[k],
+                &[spare],
+            )?;
         }
         fs.rows(k, store, spare.as_ref())?;
         fs.inverse_columns(k, store)?;

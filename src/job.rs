@@ -2,13 +2,12 @@
 //! and write the product atomically in the requested format.
 
 use crate::engine::{self, LimbSource};
-use crate::format::{format_radix_compatible, write_operand, Format, Operand};
+use crate::format::{format_radix_compatible, write_operand_file, Format, Operand};
 use crate::output::{ensure_distinct, AtomicOutput};
 use crate::plan::{self, Force, Plan, Request};
 use crate::{Error, Result};
 use rayon::prelude::*;
 use serde::Serialize;
-use std::io::{BufWriter, Write};
 use std::path::{Path, PathBuf};
 use std::time::Instant;
 
@@ -173,12 +172,8 @@ pub fn multiply_files(opts: &MulOptions) -> Result<MulReport> {
 
     let write = Instant::now();
     let target = opts.output.clone();
-    {
-        let mut w = BufWriter::with_capacity(1 << 22, out.file());
-        write_operand(&mut w, out_format, radix, negative, &product)
-            .and_then(|_| w.flush())
-            .map_err(|e| Error::io(&target, e))?;
-    }
+    write_operand_file(out.file(), out_format, radix, negative, &product)
+        .map_err(|e| Error::io(&target, e))?;
     out.commit()?;
     Ok(MulReport {
         plan,

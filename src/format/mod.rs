@@ -415,6 +415,51 @@ pub fn write_operand<W: Write>(
     negative: bool,
     limbs: &[u64],
 ) -> io::Result<()> {
+    let (limbs, negative) = checked_for_writing(format, radix, negative, limbs)?;
+    match format {
+        Format::Decimal => text::write_dec(text::TextOut::Stream(w), negative, limbs),
+        Format::Hex => text::write_hex(text::TextOut::Stream(w), negative, limbs),
+        Format::Limbs => limbs::write_raw(w, limbs),
+        Format::Container => container::write(w, radix, negative, limbs),
+    }
+}
+
+/// [`write_operand`] into a file from its start; text is written from many
+/// threads at once at its offsets, so a large product's copy into the page
+/// cache runs on every core.
+pub fn write_operand_file(
+    file: &File,
+    format: Format,
+    radix: Radix,
+    negative: bool,
+    limbs: &[u64],
+) -> io::Result<()> {
+    let at = text::TextOut::<io::Sink>::At(file);
+    match format {
+        Format::Decimal | Format::Hex => {
+            let (limbs, negative) = checked_for_writing(format, radix, negative, limbs)?;
+            if format == Format::Decimal {
+                text::write_dec(at, negative, limbs)
+            } else {
+                text::write_hex(at, negative, limbs)
+            }
+        }
+        Format::Limbs | Format::Container => {
+            let mut w = io::BufWriter::with_capacity(1 << 22, file);
+            write_operand(&mut w, format, radix, negative, limbs)?;
+            w.flush()
+        }
+    }
+}
+
+/// Refuses what a format cannot hold; returns the limbs without leading
+/// zeros and the sign (never negative for zero).
+fn checked_for_writing(
+    format: Format,
+    radix: Radix,
+    negative: bool,
+    limbs: &[u64],
+) -> io::Result<(&[u64], bool)> {
     if !format_radix_compatible(format, radix) {
         return Err(io::Error::new(
             io::ErrorKind::InvalidInput,
@@ -426,22 +471,44 @@ pub fn write_operand<W: Write>(
         ));
     }
     let n = limbs.iter().rposition(|&x| x != 0).map_or(0, |i| i + 1);
-    let limbs = &limbs[..n];
     let negative = negative && n > 0;
-    match format {
-        Format::Decimal => text::write_dec(w, negative, limbs),
-        Format::Hex => text::write_hex(w, negative, limbs),
-        Format::Limbs if negative => Err(io::Error::new(
+    if format == Format::Limbs && negative {
+        return Err(io::Error::new(
             io::ErrorKind::InvalidInput,
             "raw limbs cannot hold a negative number; use a container or text",
-        )),
-        Format::Limbs => limbs::write_raw(w, limbs),
-        Format::Container => container::write(w, radix, negative, limbs),
+        ));
     }
+    Ok((&limbs[..n], negative))
 }
 
 #[cfg(test)]
 mod tests {
+    /// The positional, parallel file writer must produce exactly the bytes
+    /// of the sequential stream writer, across many write batches.
+    #[test]
+    fn file_writer_matches_stream_writer() {
+        let dir = tempfile::tempdir().unwrap();
+        for (radix, format, max) in [
+            (Radix::Decimal, Format::Decimal, crate::radix::DEC_BASE - 1),
+            (Radix::Binary, Format::Hex, u64::MAX),
+        ] {
+            for len in [0usize, 1, 2, (1 << 15) + 1, 33 * (1 << 15) + 7] {
+                let limbs: Vec<u64> = (0..len as u64)
+                    .map(|i| i.wrapping_mul(0x9e37_79b9_7f4a_7c15) % max + 1)
+                    .collect();
+                for negative in [false, true] {
+                    let mut stream = Vec::new();
+                    write_operand(&mut stream, format, radix, negative, &limbs).unwrap();
+                    let path = dir.path().join("f.txt");
+                    let file = File::create(&path).unwrap();
+                    write_operand_file(&file, format, radix, negative, &limbs).unwrap();
+                    drop(file);
+                    assert_eq!(std::fs::read(&path).unwrap(), stream, "{format} len {len}");
+                }
+            }
+        }
+    }
+
     use super::*;
     use crate::radix::DEC_BASE;
     use crate::rng::Rng;

@@ -427,19 +427,41 @@ const WRITE_TASK_LIMBS: usize = 1 << 15;
 /// (about 20 MB of decimal text) while keeping every core busy.
 const WRITE_BATCH_TASKS: usize = 32;
 
+/// Where text goes: a stream written in order, or a file written at known
+/// offsets from many threads at once.
+pub(crate) enum TextOut<'a, W: Write> {
+    /// Bytes are written sequentially.
+    Stream(&'a mut W),
+    /// Each formatted chunk is written at its own offset, in parallel: the
+    /// page-cache copy of a large product then runs on every core.
+    At(&'a std::fs::File),
+}
+
+impl<W: Write> TextOut<'_, W> {
+    fn put(&mut self, offset: u64, bytes: &[u8]) -> io::Result<()> {
+        match self {
+            TextOut::Stream(w) => w.write_all(bytes),
+            TextOut::At(f) => {
+                use std::os::unix::fs::FileExt;
+                f.write_all_at(bytes, offset)
+            }
+        }
+    }
+}
+
 /// Writes `limbs` (little-endian, top limb non-zero, or empty for zero) as
 /// text: sign, top limb without leading zeros, the rest zero-padded to
-/// `width`, then a newline. Formatting runs in parallel; writing is
-/// sequential, in large buffers.
+/// `width`, then a newline. Formatting runs in parallel; a stream is then
+/// written sequentially in large buffers, a file at offsets in parallel.
 fn write_text<W: Write, P: Fn(&mut [u8], u64) -> bool + Sync>(
-    w: &mut W,
+    mut out: TextOut<'_, W>,
     negative: bool,
     limbs: &[u64],
     width: usize,
     put: P,
 ) -> io::Result<()> {
     let Some((&top, lower)) = limbs.split_last() else {
-        return w.write_all(b"0\n");
+        return out.put(0, b"0\n");
     };
     let mut head = Vec::with_capacity(width + 1);
     if negative {
@@ -454,7 +476,8 @@ fn write_text<W: Write, P: Fn(&mut [u8], u64) -> bool + Sync>(
         .position(|&b| b != b'0')
         .unwrap_or(width - 1);
     head.extend_from_slice(&top_digits[skip..]);
-    w.write_all(&head)?;
+    out.put(0, &head)?;
+    let body_start = head.len() as u64;
 
     // `rchunks` yields the most significant limbs first, the order in which
     // the text is written.
@@ -462,6 +485,10 @@ fn write_text<W: Write, P: Fn(&mut [u8], u64) -> bool + Sync>(
     let mut bufs: Vec<Vec<u8>> = vec![Vec::new(); WRITE_BATCH_TASKS.min(tasks.len())];
     let mut limbs_before = 0usize;
     for batch in tasks.chunks(WRITE_BATCH_TASKS) {
+        let file = match &out {
+            TextOut::At(f) => Some(*f),
+            TextOut::Stream(_) => None,
+        };
         batch
             .par_iter()
             .zip(bufs.par_iter_mut())
@@ -482,14 +509,21 @@ fn write_text<W: Write, P: Fn(&mut [u8], u64) -> bool + Sync>(
                         return Err(bad_limb(lower.len() - 1 - from_top, x));
                     }
                 }
+                if let Some(f) = file {
+                    let offset =
+                        body_start + ((limbs_before + t * WRITE_TASK_LIMBS) * width) as u64;
+                    TextOut::<W>::At(f).put(offset, buf)?;
+                }
                 Ok(())
             })?;
-        for buf in &bufs[..batch.len()] {
-            w.write_all(buf)?;
+        if file.is_none() {
+            for buf in &bufs[..batch.len()] {
+                out.put(0, buf)?;
+            }
         }
         limbs_before += batch.iter().map(|c| c.len()).sum::<usize>();
     }
-    w.write_all(b"\n")
+    out.put(body_start + (lower.len() * width) as u64, b"\n")
 }
 
 fn bad_limb(index: usize, value: u64) -> io::Error {
@@ -513,13 +547,21 @@ fn put_hex_checked(out: &mut [u8], x: u64) -> bool {
 }
 
 /// Writes base-10^19 limbs as canonical decimal text.
-pub(crate) fn write_dec<W: Write>(w: &mut W, negative: bool, limbs: &[u64]) -> io::Result<()> {
-    write_text(w, negative, limbs, DEC_DIGITS_PER_LIMB, put_dec_checked)
+pub(crate) fn write_dec<W: Write>(
+    out: TextOut<'_, W>,
+    negative: bool,
+    limbs: &[u64],
+) -> io::Result<()> {
+    write_text(out, negative, limbs, DEC_DIGITS_PER_LIMB, put_dec_checked)
 }
 
 /// Writes base-2^64 limbs as canonical lowercase hexadecimal text.
-pub(crate) fn write_hex<W: Write>(w: &mut W, negative: bool, limbs: &[u64]) -> io::Result<()> {
-    write_text(w, negative, limbs, HEX_DIGITS_PER_LIMB, put_hex_checked)
+pub(crate) fn write_hex<W: Write>(
+    out: TextOut<'_, W>,
+    negative: bool,
+    limbs: &[u64],
+) -> io::Result<()> {
+    write_text(out, negative, limbs, HEX_DIGITS_PER_LIMB, put_hex_checked)
 }
 
 #[cfg(test)]
@@ -621,7 +663,7 @@ mod tests {
     fn bad_limb_is_reported_with_its_index() {
         let mut limbs = vec![1u64; WRITE_TASK_LIMBS * 3 + 5];
         limbs[WRITE_TASK_LIMBS + 2] = DEC_BASE;
-        let err = write_dec(&mut Vec::new(), false, &limbs).unwrap_err();
+        let err = write_dec(TextOut::Stream(&mut Vec::new()), false, &limbs).unwrap_err();
         assert_eq!(err.kind(), io::ErrorKind::InvalidInput);
         assert!(
             err.to_string()
@@ -631,7 +673,7 @@ mod tests {
         let top = limbs.len() - 1;
         limbs[WRITE_TASK_LIMBS + 2] = 0;
         limbs[top] = u64::MAX;
-        let err = write_dec(&mut Vec::new(), false, &limbs).unwrap_err();
+        let err = write_dec(TextOut::Stream(&mut Vec::new()), false, &limbs).unwrap_err();
         assert!(err.to_string().contains(&format!("limb {top} ")), "{err}");
     }
 }
