@@ -21,7 +21,7 @@
 #   PEERS_MAX_BITS      largest binary size, power of two (default 30)
 #   PEERS_MAX_DIGITS    largest decimal size in digits (default 100000000)
 #   PEERS_QUICK=1       caps at 2^24 bits and 10^7 digits
-#   PEERS_REPEAT        runs per measurement, best taken (default 3; 1 from 2^28 bits)
+#   PEERS_REPEAT        runs per measurement, best taken (default 3; 1 from 2^30 bits)
 #   PEERS_THREADS       thread counts (default "1 2")
 #   PEERS_ONLY          "bin" or "dec" for one family only
 #   PEERS_VASTMUL       vastmul binary to test (default target/release/vastmul;

@@ -36,7 +36,7 @@ Environment knobs
     PEERS_MAX_DIGITS   largest decimal size in digits (default 100000000)
     PEERS_QUICK=1      smoke run: caps at 2^24 bits and 10^7 digits
     PEERS_REPEAT       runs per measurement, best taken (default 3, and 1
-                       for operands of 2^28 bits or more)
+                       for operands of 2^30 bits or more)
     PEERS_THREADS      thread counts to measure (default "1 2")
     PEERS_ONLY         "bin" or "dec" to run one family only (default both)
     PEERS_VASTMUL      vastmul binary (default target/release/vastmul)
@@ -78,7 +78,7 @@ DEC_DIGITS = [10**6, 4 * 10**6, 10**7, 4 * 10**7, 10**8]
 # k being the bit exponent (binary) or the digit count's index (decimal).
 BIN_SEED_A, BIN_SEED_B = 1000, 2000
 DEC_SEED_A, DEC_SEED_B = 3000, 4000
-SINGLE_RUN_BITS = 2**28
+SINGLE_RUN_BITS = 2**30
 CHUNK = 1 << 26
 
 
@@ -523,7 +523,7 @@ def header(cfg, load_end=None):
         + (f", at end: {load_end}" if load_end else ""),
         f"- runs per measurement: "
         + (f"{cfg.repeat} (PEERS_REPEAT)" if cfg.repeat
-           else "best of 3, single run for operands of 2^28 bits or more"),
+           else "best of 3, single run for operands of 2^30 bits or more"),
     ]
     return lines
 

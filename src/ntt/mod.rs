@@ -65,135 +65,159 @@ impl Twiddles {
     }
 }
 
+/// Decimation-in-frequency butterfly: `(x + y, (x - y) w)`, `[0, 2p)` kept.
+#[inline(always)]
+fn dif(x: &mut u64, y: &mut u64, w: ShoupConst, p: u64, two_p: u64) {
+    let (u, v) = (*x, *y);
+    let s = u + v;
+    *x = if s >= two_p { s - two_p } else { s };
+    *y = w.mul_lazy(u + two_p - v, p);
+}
+
+/// Decimation-in-time butterfly: `(x + y w, x - y w)`, `[0, 4p)` kept.
+#[inline(always)]
+fn dit(x: &mut u64, y: &mut u64, w: ShoupConst, p: u64, two_p: u64) {
+    let u = if *x >= two_p { *x - two_p } else { *x };
+    let t = w.mul_lazy(*y, p);
+    *x = u + t;
+    *y = u + two_p - t;
+}
+
+/// Splits a block of `4q` elements into its four quarters.
+#[inline(always)]
+fn quarters(block: &mut [u64], q: usize) -> [&mut [u64]; 4] {
+    let (b01, b23) = block.split_at_mut(2 * q);
+    let (b0, b1) = b01.split_at_mut(q);
+    let (b2, b3) = b23.split_at_mut(q);
+    [b0, b1, b2, b3]
+}
+
+// The transforms fuse pairs of radix-2 stages into radix-4 steps: the four
+// values of two stages stay in registers, halving the loads and stores,
+// with the same twiddles (and products) as the radix-2 stages they replace.
+
 /// Forward transform in place: input in `[0, 2p)`, natural order; output in
 /// `[0, 2p)`, bit-reversed order.
 #[inline(never)]
 pub fn forward(a: &mut [u64], tw: &Twiddles, m: &Modulus) {
-    debug_assert_eq!(a.len(), tw.len);
-    let (p, two_p) = (m.p, m.two_p);
-    let mut half = a.len() / 2;
-    while half >= 2 {
-        let stage = &tw.fwd[half + 1..2 * half];
-        for block in a.chunks_exact_mut(2 * half) {
-            let (lo, hi) = block.split_at_mut(half);
-            // The first twiddle of every block is 1: no product needed.
-            dif_unit(&mut lo[0], &mut hi[0], two_p);
-            for ((x, y), w) in lo[1..].iter_mut().zip(hi[1..].iter_mut()).zip(stage) {
-                let (u, v) = (*x, *y);
-                let s = u + v;
-                *x = if s >= two_p { s - two_p } else { s };
-                *y = w.mul_lazy(u + two_p - v, p);
-            }
-        }
-        half /= 2;
-    }
-    if a.len() >= 2 {
-        for pair in a.chunks_exact_mut(2) {
-            let (x, y) = pair.split_at_mut(1);
-            dif_unit(&mut x[0], &mut y[0], two_p);
-        }
-    }
-}
-
-/// A decimation-in-frequency butterfly with twiddle 1, keeping `[0, 2p)`.
-#[inline(always)]
-fn dif_unit(x: &mut u64, y: &mut u64, two_p: u64) {
-    let (u, v) = (*x, *y);
-    let s = u + v;
-    let d = u + two_p - v;
-    *x = if s >= two_p { s - two_p } else { s };
-    *y = if d >= two_p { d - two_p } else { d };
-}
-
-/// A decimation-in-time butterfly with twiddle 1: `[0, 4p)` in and out.
-#[inline(always)]
-fn dit_unit(x: &mut u64, y: &mut u64, two_p: u64) {
-    let u = if *x >= two_p { *x - two_p } else { *x };
-    let t = if *y >= two_p { *y - two_p } else { *y };
-    *x = u + t;
-    *y = u + two_p - t;
+    // A constant lane count lets the compiler drop the lane loops.
+    forward_impl(a, 1, tw, m)
 }
 
 /// Inverse transform in place: input in `[0, 4p)`, bit-reversed order;
 /// output in `[0, 4p)`, natural order, multiplied by the length.
 #[inline(never)]
 pub fn inverse(a: &mut [u64], tw: &Twiddles, m: &Modulus) {
-    debug_assert_eq!(a.len(), tw.len);
-    let (p, two_p) = (m.p, m.two_p);
-    if a.len() >= 2 {
-        for pair in a.chunks_exact_mut(2) {
-            let (x, y) = pair.split_at_mut(1);
-            dit_unit(&mut x[0], &mut y[0], two_p);
-        }
-    }
-    let mut half = 2;
-    while half < a.len() {
-        let stage = &tw.inv[half + 1..2 * half];
-        for block in a.chunks_exact_mut(2 * half) {
-            let (lo, hi) = block.split_at_mut(half);
-            dit_unit(&mut lo[0], &mut hi[0], two_p);
-            for ((x, y), w) in lo[1..].iter_mut().zip(hi[1..].iter_mut()).zip(stage) {
-                let u = if *x >= two_p { *x - two_p } else { *x };
-                let t = w.mul_lazy(*y, p);
-                *x = u + t;
-                *y = u + two_p - t;
-            }
-        }
-        half *= 2;
-    }
+    inverse_impl(a, 1, tw, m)
 }
 
 /// [`forward`] on `lanes` interleaved vectors of length `tw.len()`.
 #[inline(never)]
 pub fn forward_lanes(a: &mut [u64], lanes: usize, tw: &Twiddles, m: &Modulus) {
+    forward_impl(a, lanes, tw, m)
+}
+
+#[inline(always)]
+fn forward_impl(a: &mut [u64], lanes: usize, tw: &Twiddles, m: &Modulus) {
     debug_assert_eq!(a.len(), tw.len * lanes);
     let (p, two_p) = (m.p, m.two_p);
+    let t = &tw.fwd;
     let mut half = tw.len / 2;
-    while half >= 1 {
-        let stage = &tw.fwd[half..2 * half];
+    if tw.len.trailing_zeros() % 2 == 1 {
+        // An odd number of stages: one radix-2 stage first.
         for block in a.chunks_exact_mut(2 * half * lanes) {
             let (lo, hi) = block.split_at_mut(half * lanes);
-            for ((xs, ys), w) in lo
+            for ((xs, ys), &w) in lo
                 .chunks_exact_mut(lanes)
                 .zip(hi.chunks_exact_mut(lanes))
-                .zip(stage)
+                .zip(&t[half..])
             {
                 for (x, y) in xs.iter_mut().zip(ys.iter_mut()) {
-                    let (u, v) = (*x, *y);
-                    let s = u + v;
-                    *x = if s >= two_p { s - two_p } else { s };
-                    *y = w.mul_lazy(u + two_p - v, p);
+                    dif(x, y, w, p, two_p);
                 }
             }
         }
         half /= 2;
+    }
+    while half >= 2 {
+        // stages `half` (= 2q) and `q`, on blocks of 4q
+        let q = half / 2;
+        let (t1a, t1b, t2) = (&t[2 * q..3 * q], &t[3 * q..4 * q], &t[q..2 * q]);
+        for block in a.chunks_exact_mut(4 * q * lanes) {
+            let [b0, b1, b2, b3] = quarters(block, q * lanes);
+            for j in 0..q {
+                let (wa, wb, w2) = (t1a[j], t1b[j], t2[j]);
+                let r = j * lanes..(j + 1) * lanes;
+                for (((x0, x1), x2), x3) in b0[r.clone()]
+                    .iter_mut()
+                    .zip(b1[r.clone()].iter_mut())
+                    .zip(b2[r.clone()].iter_mut())
+                    .zip(b3[r].iter_mut())
+                {
+                    let (mut v0, mut v1, mut v2, mut v3) = (*x0, *x1, *x2, *x3);
+                    dif(&mut v0, &mut v2, wa, p, two_p);
+                    dif(&mut v1, &mut v3, wb, p, two_p);
+                    dif(&mut v0, &mut v1, w2, p, two_p);
+                    dif(&mut v2, &mut v3, w2, p, two_p);
+                    (*x0, *x1, *x2, *x3) = (v0, v1, v2, v3);
+                }
+            }
+        }
+        half /= 4;
     }
 }
 
 /// [`inverse`] on `lanes` interleaved vectors of length `tw.len()`.
 #[inline(never)]
 pub fn inverse_lanes(a: &mut [u64], lanes: usize, tw: &Twiddles, m: &Modulus) {
+    inverse_impl(a, lanes, tw, m)
+}
+
+#[inline(always)]
+fn inverse_impl(a: &mut [u64], lanes: usize, tw: &Twiddles, m: &Modulus) {
     debug_assert_eq!(a.len(), tw.len * lanes);
     let (p, two_p) = (m.p, m.two_p);
-    let mut half = 1;
-    while half < tw.len {
-        let stage = &tw.inv[half..2 * half];
-        for block in a.chunks_exact_mut(2 * half * lanes) {
-            let (lo, hi) = block.split_at_mut(half * lanes);
-            for ((xs, ys), w) in lo
-                .chunks_exact_mut(lanes)
-                .zip(hi.chunks_exact_mut(lanes))
-                .zip(stage)
-            {
-                for (x, y) in xs.iter_mut().zip(ys.iter_mut()) {
-                    let u = if *x >= two_p { *x - two_p } else { *x };
-                    let t = w.mul_lazy(*y, p);
-                    *x = u + t;
-                    *y = u + two_p - t;
+    let t = &tw.inv;
+    let mut q = 1;
+    while 4 * q <= tw.len {
+        // stages `q` and `2q`, on blocks of 4q
+        let (t1, t2a, t2b) = (&t[q..2 * q], &t[2 * q..3 * q], &t[3 * q..4 * q]);
+        for block in a.chunks_exact_mut(4 * q * lanes) {
+            let [b0, b1, b2, b3] = quarters(block, q * lanes);
+            for j in 0..q {
+                let (w1, wa, wb) = (t1[j], t2a[j], t2b[j]);
+                let r = j * lanes..(j + 1) * lanes;
+                for (((x0, x1), x2), x3) in b0[r.clone()]
+                    .iter_mut()
+                    .zip(b1[r.clone()].iter_mut())
+                    .zip(b2[r.clone()].iter_mut())
+                    .zip(b3[r].iter_mut())
+                {
+                    let (mut v0, mut v1, mut v2, mut v3) = (*x0, *x1, *x2, *x3);
+                    dit(&mut v0, &mut v1, w1, p, two_p);
+                    dit(&mut v2, &mut v3, w1, p, two_p);
+                    dit(&mut v0, &mut v2, wa, p, two_p);
+                    dit(&mut v1, &mut v3, wb, p, two_p);
+                    (*x0, *x1, *x2, *x3) = (v0, v1, v2, v3);
                 }
             }
         }
-        half *= 2;
+        q *= 4;
+    }
+    if q < tw.len {
+        // An odd number of stages: the last one is radix-2, with half = q.
+        for block in a.chunks_exact_mut(2 * q * lanes) {
+            let (lo, hi) = block.split_at_mut(q * lanes);
+            for ((xs, ys), &w) in lo
+                .chunks_exact_mut(lanes)
+                .zip(hi.chunks_exact_mut(lanes))
+                .zip(&t[q..])
+            {
+                for (x, y) in xs.iter_mut().zip(ys.iter_mut()) {
+                    dit(x, y, w, p, two_p);
+                }
+            }
+        }
     }
 }
 
