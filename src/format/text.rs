@@ -516,12 +516,20 @@ fn write_text<W: Write, P: Fn(&mut [u8], u64) -> bool + Sync>(
                 }
                 Ok(())
             })?;
-        if file.is_none() {
-            for buf in &bufs[..batch.len()] {
-                out.put(0, buf)?;
+        let batch_limbs = batch.iter().map(|c| c.len()).sum::<usize>();
+        match file {
+            None => {
+                for buf in &bufs[..batch.len()] {
+                    out.put(0, buf)?;
+                }
             }
+            Some(f) => crate::output::start_writeback(
+                f,
+                body_start + (limbs_before * width) as u64,
+                (batch_limbs * width) as u64,
+            ),
         }
-        limbs_before += batch.iter().map(|c| c.len()).sum::<usize>();
+        limbs_before += batch_limbs;
     }
     out.put(body_start + (lower.len() * width) as u64, b"\n")
 }
