@@ -248,6 +248,29 @@ fn same_file(_: &std::fs::Metadata, _: &std::fs::Metadata) -> bool {
     false
 }
 
+/// Asks the kernel to start writing `len` bytes at `offset` of `file` to
+/// disk now, without waiting. Writing a large product back while the rest
+/// is still being formatted leaves less for the final fsync to wait for.
+/// Advice only: errors are ignored, and the final fsync still decides.
+pub fn start_writeback(file: &File, offset: u64, len: u64) {
+    #[cfg(target_os = "linux")]
+    {
+        use std::os::fd::AsRawFd;
+        // SAFETY: sync_file_range only reads its integer arguments; the file
+        // descriptor is valid for the duration of the borrow of `file`.
+        unsafe {
+            libc::sync_file_range(
+                file.as_raw_fd(),
+                offset as libc::off64_t,
+                len as libc::off64_t,
+                libc::SYNC_FILE_RANGE_WRITE,
+            );
+        }
+    }
+    #[cfg(not(target_os = "linux"))]
+    let _ = (file, offset, len);
+}
+
 #[cfg(test)]
 mod tests {
     use super::*;
@@ -381,27 +404,4 @@ mod tests {
         let err = ensure_distinct(&link, &[&a]).unwrap_err();
         assert!(err.to_string().contains("hard.txt"), "{err}");
     }
-}
-
-/// Asks the kernel to start writing `len` bytes at `offset` of `file` to
-/// disk now, without waiting. Writing a large product back while the rest
-/// is still being formatted leaves less for the final fsync to wait for.
-/// Advice only: errors are ignored, and the final fsync still decides.
-pub fn start_writeback(file: &File, offset: u64, len: u64) {
-    #[cfg(target_os = "linux")]
-    {
-        use std::os::fd::AsRawFd;
-        // SAFETY: sync_file_range only reads its integer arguments; the file
-        // descriptor is valid for the duration of the borrow of `file`.
-        unsafe {
-            libc::sync_file_range(
-                file.as_raw_fd(),
-                offset as libc::off64_t,
-                len as libc::off64_t,
-                libc::SYNC_FILE_RANGE_WRITE,
-            );
-        }
-    }
-    #[cfg(not(target_os = "linux"))]
-    let _ = (file, offset, len);
 }
