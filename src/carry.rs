@@ -69,22 +69,35 @@ where
     F: Fn(usize, &mut [U192]) + Sync,
 {
     assert!(out.len() > count);
-    let chunk = (count / (4 * rayon::current_num_threads()).max(1)).clamp(1 << 12, 1 << 20);
-    // A single chunk needs no fix-up and no thread pool.
+    let carry = propagate_block(coeff, radix, [0, 0, 0], &mut out[..count]);
+    finish(out, count, carry, radix);
+}
+
+/// The limbs of `carry_in + sum_k coeff(k) base^k` for `k < digits.len()`:
+/// the low `digits.len()` limbs go to `digits`, the rest is returned as the
+/// carry out. Parallel in chunks, with a sequential fix-up; a product too
+/// large for RAM runs it window by window, feeding each window's carry to
+/// the next.
+pub fn propagate_block<F>(coeff: F, radix: Radix, carry_in: U192, digits: &mut [u64]) -> U192
+where
+    F: Fn(usize, &mut [U192]) + Sync,
+{
+    let count = digits.len();
+    // Chunks small enough that each task's buffers stay a few megabytes.
+    let chunk = (count / (4 * rayon::current_num_threads()).max(1)).clamp(1 << 12, 1 << 16);
     if count <= chunk {
         let mut coeffs = vec![[0u64; 3]; count];
         coeff(0, &mut coeffs);
-        let mut carry = [0u64; 3];
-        for (d, c) in out.iter_mut().zip(&coeffs) {
+        let mut carry = carry_in;
+        for (d, c) in digits.iter_mut().zip(&coeffs) {
             let (q, r) = split_limb(add192(*c, carry), radix);
             *d = r;
             carry = q;
         }
-        return finish(out, count, carry, radix);
+        return carry;
     }
-    let (body, _) = out.split_at_mut(count);
     // First pass: each chunk with zero carry in, returning its carry out.
-    let carries: Vec<U192> = body
+    let carries: Vec<U192> = digits
         .par_chunks_mut(chunk)
         .enumerate()
         .map(|(ci, digits)| {
@@ -102,20 +115,20 @@ where
         .collect();
     // Fix-up: feed each chunk's carry into the next; ripples are short except
     // through runs of maximal limbs, and those are handled the same way.
-    let mut carry = [0u64; 3];
+    let mut carry = carry_in;
     for (ci, chunk_carry) in carries.iter().enumerate() {
         let start = ci * chunk;
         let end = (start + chunk).min(count);
         let mut k = start;
         while carry != [0, 0, 0] && k < end {
-            let (q, r) = split_limb(add192([out[k], 0, 0], carry), radix);
-            out[k] = r;
+            let (q, r) = split_limb(add192([digits[k], 0, 0], carry), radix);
+            digits[k] = r;
             carry = q;
             k += 1;
         }
         carry = add192(carry, *chunk_carry);
     }
-    finish(out, count, carry, radix)
+    carry
 }
 
 /// Writes the final carry above the coefficients and zero-fills the rest.
@@ -129,6 +142,17 @@ fn finish(out: &mut [u64], count: usize, mut carry: U192, radix: Radix) {
         k += 1;
     }
     out[k..].fill(0);
+}
+
+/// The limbs of a final carry, least significant first (at most three).
+pub fn carry_limbs(mut carry: U192, radix: Radix) -> Vec<u64> {
+    let mut out = Vec::new();
+    while carry != [0, 0, 0] {
+        let (q, r) = split_limb(carry, radix);
+        out.push(r);
+        carry = q;
+    }
+    out
 }
 
 #[cfg(test)]

@@ -53,6 +53,8 @@ pub fn run(dir: &Path, digits: u64, threads: usize, force: bool) -> Result<DemoR
         force,
         threads,
         algorithm: Force::Auto,
+        memory: None,
+        scratch: None,
     })?;
     let mut residues = [0u64; 3];
     for (r, path) in residues.iter_mut().zip([&a, &b, &c]) {

@@ -6,9 +6,11 @@ use crate::fourstep::{FourStep, Shape};
 use crate::plan::{self, Algorithm, Force, Plan, Request};
 use crate::radix::Radix;
 use crate::schoolbook;
-use crate::storage::{RamStore, WordBuf};
+use crate::scratch::FileStore;
+use crate::storage::{RamStore, Store, WordBuf};
 use crate::Result;
 use rayon::prelude::*;
+use std::path::Path;
 
 /// A source of limbs: `fill_limbs(first, out)` writes limbs
 /// `first..first + out.len()` into `out`, zeros past the operand's end.
@@ -69,6 +71,12 @@ where
             out
         }
         Algorithm::Ntt { shape } => ntt_product(plan, shape, a, b)?,
+        Algorithm::OutOfCore { .. } => {
+            return Err(crate::Error::usage(
+                "an out-of-core plan needs a scratch directory",
+                "call execute_to with one",
+            ))
+        }
     };
     let len = out.iter().rposition(|&w| w != 0).map_or(0, |i| i + 1);
     out.truncate(len);
@@ -144,6 +152,136 @@ where
     }
 }
 
+/// A computed product: in RAM, or in a scratch file for an out-of-core plan.
+pub enum Product {
+    /// Limbs in RAM, no leading zeros.
+    Ram(WordBuf),
+    /// Limbs in a scratch file (removed when dropped), `len` significant.
+    Disk {
+        /// The file holding the limbs from word 0.
+        store: FileStore,
+        /// Significant limbs.
+        len: usize,
+    },
+}
+
+impl Product {
+    /// Significant limbs.
+    pub fn len(&self) -> usize {
+        match self {
+            Product::Ram(w) => w.len(),
+            Product::Disk { len, .. } => *len,
+        }
+    }
+
+    /// True for a zero product.
+    pub fn is_empty(&self) -> bool {
+        self.len() == 0
+    }
+}
+
+/// Carries out any plan; out-of-core plans keep their scratch files in
+/// `scratch_dir` (removed afterwards, also on failure).
+pub fn execute_to<A, B>(plan: &Plan, a: &A, b: &B, scratch_dir: &Path) -> Result<Product>
+where
+    A: LimbSource + ?Sized,
+    B: LimbSource + ?Sized,
+{
+    match plan.algorithm {
+        Algorithm::OutOfCore { shape, window } => {
+            ooc_product(plan, shape, window, a, b, scratch_dir)
+        }
+        _ => execute(plan, a, b).map(Product::Ram),
+    }
+}
+
+/// Distinct names for one run's scratch files.
+fn scratch_path(dir: &Path, what: &str) -> std::path::PathBuf {
+    use std::sync::atomic::{AtomicU64, Ordering};
+    static COUNTER: AtomicU64 = AtomicU64::new(0);
+    let n = COUNTER.fetch_add(1, Ordering::Relaxed);
+    dir.join(format!(
+        ".vastmul-scratch-{}-{n}-{what}",
+        std::process::id()
+    ))
+}
+
+/// The NTT over scratch files: the same passes as in RAM, through
+/// [`FileStore`]s, with the carry pass in windows of `window` limbs written
+/// to the reused store.
+fn ooc_product<A, B>(
+    plan: &Plan,
+    shape: Shape,
+    window: usize,
+    a: &A,
+    b: &B,
+    dir: &Path,
+) -> Result<Product>
+where
+    A: LimbSource + ?Sized,
+    B: LimbSource + ?Sized,
+{
+    let (la, lb) = (plan.a_limbs, plan.b_limbs);
+    let fs = FourStep::new(shape);
+    let n = shape.len();
+    let count = la + lb - 1;
+    let stores_a = [
+        FileStore::create(&scratch_path(dir, "a0"), n)?,
+        FileStore::create(&scratch_path(dir, "a1"), n)?,
+        FileStore::create(&scratch_path(dir, "a2"), n)?,
+    ];
+    let spare = FileStore::create(&scratch_path(dir, "b"), n.max(plan.product_limbs))?;
+    let a_refs: Vec<&FileStore> = stores_a.iter().collect();
+    fs.forward_columns(
+        &|f, o: &mut [u64]| a.fill_limbs(f, o),
+        la,
+        &[0, 1, 2],
+        &a_refs,
+    )?;
+    for (k, store) in stores_a.iter().enumerate() {
+        if !plan.square {
+            fs.forward_columns(&|f, o: &mut [u64]| b.fill_limbs(f, o), lb, &[k], &[&spare])?;
+        }
+        fs.rows(k, store, (!plan.square).then_some(&spare))?;
+        fs.inverse_columns(k, store)?;
+    }
+    let mut first = count;
+    while first < n {
+        let w = window.min(n - first);
+        fs.check_zero_tail_range(&a_refs, first, w)?;
+        first += w;
+    }
+    let failure = std::sync::Mutex::new(None);
+    let mut digits = vec![0u64; window];
+    let mut carry = [0u64; 3];
+    let mut first = 0;
+    while first < count {
+        let w = window.min(count - first);
+        carry = carry::propagate_block(
+            |f, dst: &mut [U192]| {
+                let mut tmp = Default::default();
+                if let Err(e) = fs.coefficients(&a_refs, first + f, dst, &mut tmp) {
+                    *failure.lock().unwrap() = Some(e);
+                }
+            },
+            plan.radix,
+            carry,
+            &mut digits[..w],
+        );
+        if let Some(e) = failure.lock().unwrap().take() {
+            return Err(e);
+        }
+        spare.write(first, &digits[..w])?;
+        first += w;
+    }
+    let top = carry::carry_limbs(carry, plan.radix);
+    spare.write(count, &top)?;
+    Ok(Product::Disk {
+        store: spare,
+        len: count + top.len(),
+    })
+}
+
 fn trimmed(x: &[u64]) -> &[u64] {
     let len = x.iter().rposition(|&w| w != 0).map_or(0, |i| i + 1);
     &x[..len]
@@ -160,14 +298,14 @@ pub fn multiply(a: &[u64], b: &[u64], radix: Radix) -> Vec<u64> {
 pub fn multiply_forced(a: &[u64], b: &[u64], radix: Radix, force: Force) -> Vec<u64> {
     let (a, b) = (trimmed(a), trimmed(b));
     debug_assert!(a.iter().chain(b).all(|&x| x <= radix.max_limb()));
-    let req = Request {
-        a_limbs: a.len(),
-        b_limbs: b.len(),
+    let req = Request::in_memory(
+        a.len(),
+        b.len(),
         radix,
-        square: a == b,
-        threads: rayon::current_num_threads(),
+        a == b,
+        rayon::current_num_threads(),
         force,
-    };
+    );
     let plan = plan::plan(&req).expect("in-memory products of slices always plan");
     execute(&plan, a, b)
         .expect("RAM stores do not fail")

@@ -297,10 +297,23 @@ impl FourStep {
     /// corrupted memory or scratch data.
     pub fn check_zero_tail<S: Store>(&self, stores: &[&S], first: usize) -> Result<()> {
         let n = self.shape.len();
-        if first >= n {
-            return Ok(());
+        let mut k = first;
+        while k < n {
+            let w = (n - k).min(1 << 16);
+            self.check_zero_tail_range(stores, k, w)?;
+            k += w;
         }
-        let mut out = vec![[0u64; 3]; n - first];
+        Ok(())
+    }
+
+    /// [`FourStep::check_zero_tail`] for coefficients `first..first + len`.
+    pub fn check_zero_tail_range<S: Store>(
+        &self,
+        stores: &[&S],
+        first: usize,
+        len: usize,
+    ) -> Result<()> {
+        let mut out = vec![[0u64; 3]; len];
         let mut tmp: [Vec<u64>; 3] = Default::default();
         self.coefficients(stores, first, &mut out, &mut tmp)?;
         match out.iter().position(|v| *v != [0, 0, 0]) {

@@ -76,12 +76,7 @@ impl std::fmt::Display for Info {
         )?;
         writeln!(f, "digits  {} {digit_kind}", self.digits)?;
         writeln!(f, "limbs   {}", self.limbs)?;
-        writeln!(
-            f,
-            "size    {} ({} bytes)",
-            bytesize::ByteSize::b(self.file_bytes),
-            self.file_bytes
-        )?;
+        writeln!(f, "size    {}", crate::size::show_size(self.file_bytes))?;
         write!(f, "blake3  {}", self.blake3)
     }
 }

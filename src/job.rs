@@ -1,10 +1,16 @@
 //! The `mul` job end to end: open and validate the operands, plan, compute,
 //! and write the product atomically in the requested format.
 
+use crate::engine::Product;
 use crate::engine::{self, LimbSource};
-use crate::format::{format_radix_compatible, write_operand_file, Format, Operand};
+use crate::format::{
+    format_radix_compatible, write_operand_file, write_text_file_from, Format, Operand,
+};
 use crate::output::{ensure_distinct, AtomicOutput};
 use crate::plan::{self, Force, Plan, Request};
+use crate::scratch::free_space;
+use crate::size::{default_budget, show_size};
+use crate::storage::Store;
 use crate::{Error, Result};
 use rayon::prelude::*;
 use serde::Serialize;
@@ -30,6 +36,10 @@ pub struct MulOptions {
     pub threads: usize,
     /// A forced algorithm (benchmarks and tests).
     pub algorithm: Force,
+    /// Memory budget in bytes (`None`: half of physical RAM).
+    pub memory: Option<u64>,
+    /// Directory for scratch files (`None`: the output's directory).
+    pub scratch: Option<PathBuf>,
 }
 
 /// What a multiplication did.
@@ -122,8 +132,9 @@ impl Operands {
         self.b.as_ref().unwrap_or(&self.a)
     }
 
-    fn request(&self, threads: usize, force: Force) -> Request {
+    fn request(&self, threads: usize, force: Force, memory: u64) -> Request {
         let (a, b) = (&self.a, self.b());
+        let input_bytes = a.file_len() + self.b.as_ref().map_or(0, |b| b.file_len());
         Request {
             a_limbs: a.limb_count(),
             b_limbs: b.limb_count(),
@@ -131,14 +142,58 @@ impl Operands {
             square: self.b.is_none() || same_magnitude(a, b),
             threads,
             force,
+            memory,
+            input_bytes,
         }
     }
 }
 
-/// The plan `vastmul mul` would follow for these operand files.
-pub fn plan_files(a: &Path, b: &Path, format: Option<Format>, threads: usize) -> Result<Plan> {
+/// The plan `vastmul mul` would follow for these operand files under a
+/// memory budget (`None`: the default share of RAM).
+pub fn plan_files(
+    a: &Path,
+    b: &Path,
+    format: Option<Format>,
+    threads: usize,
+    memory: Option<u64>,
+) -> Result<Plan> {
     let ops = Operands::open(a, b, format)?;
-    plan::plan(&ops.request(threads, Force::Auto))
+    plan::plan(&ops.request(threads, Force::Auto, memory.unwrap_or_else(default_budget)))
+}
+
+/// The directory scratch files go to: `--scratch`, else the output's
+/// directory (so the final rename stays on one file system). It must exist
+/// and have room for `needed` bytes.
+fn scratch_dir(opts: &MulOptions, needed: u64) -> Result<PathBuf> {
+    let dir = match &opts.scratch {
+        Some(d) => d.clone(),
+        None => match opts.output.parent() {
+            Some(p) if !p.as_os_str().is_empty() => p.to_path_buf(),
+            _ => PathBuf::from("."),
+        },
+    };
+    if !dir.is_dir() {
+        return Err(Error::usage(
+            format!(
+                "scratch directory {} does not exist or is not a directory",
+                dir.display()
+            ),
+            "create it, or pass --scratch with an existing directory",
+        ));
+    }
+    let free = free_space(&dir)?;
+    if free < needed {
+        return Err(Error::Resources {
+            what: format!(
+                "{}: scratch space needed {}, available {}",
+                dir.display(),
+                show_size(needed),
+                show_size(free)
+            ),
+            fix: "free space there, or pass --scratch DIR on a disk with more room".into(),
+        });
+    }
+    Ok(dir)
 }
 
 /// Multiplies two operand files into an output file.
@@ -163,17 +218,42 @@ pub fn multiply_files(opts: &MulOptions) -> Result<MulReport> {
     let negative = a.is_negative() != b.is_negative();
     ensure_distinct(&opts.output, &[&opts.a, &opts.b])?;
     let mut out = AtomicOutput::create(&opts.output, opts.force)?;
-    let plan = plan::plan(&ops.request(opts.threads, opts.algorithm))?;
+    let memory = opts.memory.unwrap_or_else(default_budget);
+    let plan = plan::plan(&ops.request(opts.threads, opts.algorithm, memory))?;
+    let text_bytes = 20 * plan.product_limbs as u64;
+    let dir = if plan.scratch_bytes > 0 {
+        let same_fs = opts.scratch.is_none();
+        scratch_dir(
+            opts,
+            plan.scratch_bytes + if same_fs { text_bytes } else { 0 },
+        )?
+    } else {
+        PathBuf::from(".")
+    };
     let open_seconds = started.elapsed().as_secs_f64();
 
     let compute = Instant::now();
-    let product = engine::execute(&plan, a, b)?;
+    let product = engine::execute_to(&plan, a, b, &dir)?;
     let compute_seconds = compute.elapsed().as_secs_f64();
 
     let write = Instant::now();
     let target = opts.output.clone();
-    write_operand_file(out.file(), out_format, radix, negative, &product)
-        .map_err(|e| Error::io(&target, e))?;
+    match &product {
+        Product::Ram(limbs) => write_operand_file(out.file(), out_format, radix, negative, limbs),
+        Product::Disk { store, len } => write_text_file_from(
+            out.file(),
+            out_format,
+            radix,
+            negative,
+            *len,
+            &|first, dst| {
+                store
+                    .read(first, dst)
+                    .map_err(|e| std::io::Error::other(e.to_string()))
+            },
+        ),
+    }
+    .map_err(|e| Error::io(&target, e))?;
     out.commit()?;
     Ok(MulReport {
         plan,

@@ -31,3 +31,5 @@ pub use engine::multiply;
 pub mod demo;
 pub mod job;
 pub mod residue;
+pub mod scratch;
+pub mod size;

@@ -99,6 +99,13 @@ enum Command {
         /// Force an algorithm (for benchmarks and tests).
         #[arg(long, value_enum, default_value = "auto", hide = true)]
         algorithm: AlgorithmArg,
+        /// Memory budget, e.g. 512MiB, 4GiB, 1.5G (G = 10^9, GiB = 2^30;
+        /// default: half of physical RAM). Beyond it the work goes to scratch files.
+        #[arg(long, value_parser = parse_size_arg)]
+        memory: Option<u64>,
+        /// Directory for scratch files (default: the output's directory).
+        #[arg(long)]
+        scratch: Option<PathBuf>,
         /// Print a machine-readable report on stdout.
         #[arg(long)]
         json: bool,
@@ -150,10 +157,17 @@ enum Command {
         /// Operand format (default: detected).
         #[arg(long, value_enum)]
         in_format: Option<FormatArg>,
+        /// Memory budget, as for `mul`.
+        #[arg(long, value_parser = parse_size_arg)]
+        memory: Option<u64>,
         /// Print JSON instead of text.
         #[arg(long)]
         json: bool,
     },
+}
+
+fn parse_size_arg(s: &str) -> Result<u64, String> {
+    vastmul::size::parse_size(s).map_err(|e| e.to_string())
 }
 
 fn default_threads() -> usize {
@@ -238,6 +252,8 @@ fn run(cli: Cli) -> Result<(), Error> {
             out_format,
             force,
             algorithm,
+            memory,
+            scratch,
             json,
         } => {
             let threads = set_threads(threads)?;
@@ -254,6 +270,8 @@ fn run(cli: Cli) -> Result<(), Error> {
                     AlgorithmArg::Schoolbook => Force::Schoolbook,
                     AlgorithmArg::Ntt => Force::Ntt,
                 },
+                memory,
+                scratch,
             };
             let report = multiply_files(&opts)?;
             if json {
@@ -309,10 +327,12 @@ fn run(cli: Cli) -> Result<(), Error> {
             b,
             threads,
             in_format,
+            memory,
             json,
         } => {
             let threads = set_threads(threads)?;
-            let plan = vastmul::job::plan_files(&a, &b, in_format.map(Into::into), threads)?;
+            let plan =
+                vastmul::job::plan_files(&a, &b, in_format.map(Into::into), threads, memory)?;
             if json {
                 println!(
                     "{}",

@@ -48,6 +48,26 @@ pub enum Algorithm {
         /// The transform's shape.
         shape: Shape,
     },
+    /// Three-prime four-step NTT over scratch files, under the memory
+    /// budget: column blocks of `shape.lanes` columns and single rows in
+    /// RAM, the carry and output passes in windows of `window` limbs.
+    OutOfCore {
+        /// The transform's shape.
+        shape: Shape,
+        /// Limbs per carry/output window.
+        window: usize,
+    },
+}
+
+/// One pass over the data, with the bytes it moves.
+#[derive(Clone, Debug, PartialEq, Eq, Serialize, Deserialize)]
+pub struct Pass {
+    /// What the pass does.
+    pub name: String,
+    /// Bytes read (inputs or scratch).
+    pub read_bytes: u64,
+    /// Bytes written (scratch or output).
+    pub write_bytes: u64,
 }
 
 /// A choice of algorithm forced by the caller (tests, benchmarks).
@@ -76,6 +96,33 @@ pub struct Request {
     pub threads: usize,
     /// A forced algorithm, or `Force::Auto`.
     pub force: Force,
+    /// The memory budget in bytes (`u64::MAX`: unlimited).
+    pub memory: u64,
+    /// Bytes of the input files, which are memory-mapped while read.
+    pub input_bytes: u64,
+}
+
+impl Request {
+    /// A request without a memory budget, for products of slices in RAM.
+    pub fn in_memory(
+        a_limbs: usize,
+        b_limbs: usize,
+        radix: Radix,
+        square: bool,
+        threads: usize,
+        force: Force,
+    ) -> Self {
+        Request {
+            a_limbs,
+            b_limbs,
+            radix,
+            square,
+            threads,
+            force,
+            memory: u64::MAX,
+            input_bytes: 0,
+        }
+    }
 }
 
 /// A complete description of how a product will be computed.
@@ -97,8 +144,14 @@ pub struct Plan {
     pub algorithm: Algorithm,
     /// The NTT primes (when the NTT is used).
     pub primes: Vec<u64>,
-    /// RAM the working arrays need, in bytes.
+    /// Peak RAM the plan needs, in bytes, mapped input pages included.
     pub ram_bytes: u64,
+    /// The memory budget the plan was made for (`u64::MAX`: none).
+    pub memory_budget: u64,
+    /// Scratch disk the plan needs, in bytes (0 in RAM).
+    pub scratch_bytes: u64,
+    /// The passes over the data, in order, with the bytes each moves.
+    pub passes: Vec<Pass>,
 }
 
 /// The four-step shape for a transform of at least `min_len` points.
@@ -113,6 +166,27 @@ pub fn shape_for(min_len: usize) -> Shape {
         cols,
         lanes: LANES.min(cols),
     }
+}
+
+/// Fixed RAM besides the working arrays: the binary and its libraries and
+/// thread stacks (about 4 MiB resident, measured with `/usr/bin/time -v`),
+/// the text writer's batch buffers (under 2 MiB) and allocator slack.
+const FIXED_RAM: u64 = 6 << 20;
+
+/// Text bytes per limb when a product is written (decimal is widest).
+const TEXT_BYTES_PER_LIMB: u64 = 19;
+
+/// RAM per thread of the passes of `shape`: a column block (raw and
+/// transformed) and the row buffers.
+fn per_thread_ram(shape: Shape) -> u64 {
+    8 * (2 * shape.rows * shape.lanes + 3 * shape.cols) as u64
+}
+
+/// RAM of the carry and output passes for a window of `window` limbs: three
+/// residue words and a 192-bit coefficient per limb in flight, the limbs
+/// themselves and their text.
+fn window_ram(window: usize) -> u64 {
+    (8 * 3 + 24 + 8 + TEXT_BYTES_PER_LIMB) * window as u64
 }
 
 /// Plans a product.
@@ -134,7 +208,10 @@ pub fn plan(req: &Request) -> Result<Plan> {
         threads: req.threads,
         algorithm: Algorithm::Zero,
         primes: Vec::new(),
-        ram_bytes: 0,
+        ram_bytes: FIXED_RAM + req.input_bytes,
+        memory_budget: req.memory,
+        scratch_bytes: 0,
+        passes: Vec::new(),
     };
     if la == 0 || lb == 0 {
         plan.product_limbs = 0;
@@ -154,8 +231,13 @@ pub fn plan(req: &Request) -> Result<Plan> {
     let limb_bytes = 8 * product_limbs as u64;
     if !use_ntt {
         plan.algorithm = Algorithm::Schoolbook;
-        plan.ram_bytes = 24 * coefficients as u64 + limb_bytes;
-        return Ok(plan);
+        plan.ram_bytes += 24 * coefficients as u64 + limb_bytes + 8 * (la + lb) as u64;
+        plan.passes = vec![Pass {
+            name: "schoolbook convolution and carry".into(),
+            read_bytes: req.input_bytes,
+            write_bytes: limb_bytes,
+        }];
+        return check_budget(plan);
     }
     if shape.len() as u64 > MAX_TRANSFORM_LEN {
         return Err(Error::Resources {
@@ -169,10 +251,133 @@ pub fn plan(req: &Request) -> Result<Plan> {
     // Exactness: every coefficient sums at most `short` limb products, and
     // the CRT over the three primes is exact below their product.
     assert!(coefficient_bound_holds(short as u64, req.radix.max_limb()));
-    let operands = if req.square { 1 } else { 2 };
-    plan.algorithm = Algorithm::Ntt { shape };
     plan.primes = PRIMES.iter().map(|p| p.modulus.p).collect();
-    plan.ram_bytes = (operands * PRIME_COUNT * shape.len() * 8) as u64 + limb_bytes;
+    let n_words = shape.len() as u64;
+    // Three stores for A, one reused for B and then for the product limbs.
+    let spare_words = n_words.max(product_limbs as u64);
+    let store_bytes = 8 * (PRIME_COUNT as u64 * n_words + if req.square { 0 } else { spare_words });
+    let product_store = if req.square { limb_bytes } else { 0 };
+    let b_decoded = if req.square { 0 } else { 8 * lb as u64 };
+    let threads = req.threads as u64;
+    let in_ram =
+        plan.ram_bytes + store_bytes + product_store + b_decoded + threads * per_thread_ram(shape);
+    if in_ram <= req.memory {
+        plan.algorithm = Algorithm::Ntt { shape };
+        plan.ram_bytes = in_ram;
+        plan.passes = ntt_passes(req, shape, 0);
+        return Ok(plan);
+    }
+    plan_out_of_core(req, plan, coefficients)
+}
+
+/// The passes of the NTT path and the bytes each moves; `scratch` is the
+/// byte count of what goes through scratch files (0 in RAM, then the
+/// figures count RAM traffic).
+fn ntt_passes(req: &Request, shape: Shape, _scratch: u64) -> Vec<Pass> {
+    let n8 = 8 * shape.len() as u64;
+    let p8 = 8 * (req.a_limbs + req.b_limbs) as u64;
+    let mut passes = vec![Pass {
+        name: "columns of A, three primes".into(),
+        read_bytes: req.input_bytes / if req.square { 1 } else { 2 },
+        write_bytes: 3 * n8,
+    }];
+    for k in 0..PRIME_COUNT {
+        if !req.square {
+            passes.push(Pass {
+                name: format!("columns of B, prime {k}"),
+                read_bytes: req.input_bytes / 2,
+                write_bytes: n8,
+            });
+        }
+        passes.push(Pass {
+            name: format!("rows and pointwise product, prime {k}"),
+            read_bytes: if req.square { n8 } else { 2 * n8 },
+            write_bytes: n8,
+        });
+        passes.push(Pass {
+            name: format!("inverse columns, prime {k}"),
+            read_bytes: n8,
+            write_bytes: n8,
+        });
+    }
+    passes.push(Pass {
+        name: "CRT and carry".into(),
+        read_bytes: 3 * 8 * (req.a_limbs + req.b_limbs - 1) as u64,
+        write_bytes: p8,
+    });
+    passes
+}
+
+/// Chooses column blocks, rows and windows that fit the budget, or refuses
+/// with the smallest budget that would do.
+fn plan_out_of_core(req: &Request, mut plan: Plan, coefficients: usize) -> Result<Plan> {
+    let mut shape = shape_for(coefficients);
+    let threads = req.threads as u64;
+    let product_limbs = req.a_limbs + req.b_limbs;
+    // Carry and output windows start at up to a quarter of the budget, then
+    // column blocks as wide as fit: wide blocks mean long sequential
+    // segments on disk. Both shrink until the plan fits.
+    let mut window = product_limbs.next_power_of_two().clamp(1 << 12, 1 << 20);
+    while window > 1 << 12 && window_ram(window) > req.memory / 4 {
+        window /= 2;
+    }
+    let ram = |shape: Shape, window: usize| {
+        FIXED_RAM + req.input_bytes + window_ram(window) + threads * per_thread_ram(shape)
+    };
+    loop {
+        shape.lanes = shape.cols;
+        while shape.lanes > 1 && ram(shape, window) > req.memory {
+            shape.lanes /= 2;
+        }
+        if ram(shape, window) <= req.memory || window == 1 << 12 {
+            break;
+        }
+        window /= 2;
+    }
+    let need = ram(shape, window);
+    if need > req.memory {
+        return Err(Error::Resources {
+            what: format!(
+                "a memory budget of {} is too small for this product: the smallest plan needs {}",
+                crate::size::show_size(req.memory),
+                crate::size::show_size(need)
+            ),
+            fix: format!(
+                "pass --memory {}MiB or more, or fewer --threads",
+                need.div_ceil(1 << 20)
+            ),
+        });
+    }
+    let n_words = shape.len() as u64;
+    let spare_words = n_words.max(product_limbs as u64);
+    plan.algorithm = Algorithm::OutOfCore { shape, window };
+    plan.ram_bytes = need;
+    plan.scratch_bytes = 8 * (PRIME_COUNT as u64 * n_words + spare_words);
+    plan.passes = ntt_passes(req, shape, plan.scratch_bytes);
+    plan.passes.push(Pass {
+        name: "write the product".into(),
+        read_bytes: 8 * product_limbs as u64,
+        write_bytes: TEXT_BYTES_PER_LIMB * product_limbs as u64,
+    });
+    Ok(plan)
+}
+
+/// Refuses a plan whose RAM exceeds the budget (paths without an
+/// out-of-core form).
+fn check_budget(plan: Plan) -> Result<Plan> {
+    if plan.ram_bytes > plan.memory_budget {
+        return Err(Error::Resources {
+            what: format!(
+                "this product needs {} of RAM, over the memory budget of {}",
+                crate::size::show_size(plan.ram_bytes),
+                crate::size::show_size(plan.memory_budget)
+            ),
+            fix: format!(
+                "pass --memory {}MiB or more",
+                plan.ram_bytes.div_ceil(1 << 20)
+            ),
+        });
+    }
     Ok(plan)
 }
 
@@ -181,14 +386,7 @@ mod tests {
     use super::*;
 
     fn req(a: usize, b: usize) -> Request {
-        Request {
-            a_limbs: a,
-            b_limbs: b,
-            radix: Radix::Binary,
-            square: false,
-            threads: 2,
-            force: Force::Auto,
-        }
+        Request::in_memory(a, b, Radix::Binary, false, 2, Force::Auto)
     }
 
     #[test]
@@ -224,12 +422,73 @@ mod tests {
         assert!(e.contains("--threads"), "{e}");
     }
 
+    /// Over a grid of sizes and budgets: every plan fits its budget, takes
+    /// the RAM path exactly when that fits, covers the product, and keeps
+    /// the convolution exact.
     #[test]
-    fn square_needs_half_the_transform_memory() {
+    fn no_plan_exceeds_its_budget() {
+        let mb = 1u64 << 20;
+        for limbs in [1_000usize, 100_000, 1_000_000, 50_000_000, 600_000_000] {
+            for budget in [8 * mb, 64 * mb, 256 * mb, 2048 * mb, 1 << 40] {
+                for radix in [Radix::Binary, Radix::Decimal] {
+                    let mut r =
+                        Request::in_memory(limbs, limbs / 3 + 1, radix, false, 2, Force::Ntt);
+                    r.memory = budget;
+                    r.input_bytes = 19 * (limbs + limbs / 3) as u64;
+                    match plan(&r) {
+                        Ok(p) => {
+                            assert!(p.ram_bytes <= budget, "{limbs} {budget}: {p:?}");
+                            let shape = match p.algorithm {
+                                Algorithm::Ntt { shape } => shape,
+                                Algorithm::OutOfCore { shape, .. } => {
+                                    assert!(p.scratch_bytes >= 8 * 4 * shape.len() as u64);
+                                    shape
+                                }
+                                other => panic!("{other:?}"),
+                            };
+                            assert!(shape.len() >= limbs + limbs / 3);
+                            assert_eq!(shape.cols % shape.lanes, 0);
+                            assert!(coefficient_bound_holds(
+                                (limbs / 3 + 1) as u64,
+                                radix.max_limb()
+                            ));
+                        }
+                        Err(e) => {
+                            let text = e.to_string();
+                            assert!(text.contains("smallest plan needs"), "{text}");
+                            assert!(
+                                budget <= 8 * mb || limbs >= 50_000_000,
+                                "{limbs} {budget}: {text}"
+                            );
+                        }
+                    }
+                }
+            }
+        }
+    }
+
+    #[test]
+    fn small_budgets_go_out_of_core_and_tiny_ones_are_refused() {
+        let mut r = req(1_000_000, 1_000_000);
+        r.memory = 32 << 20;
+        let p = plan(&r).unwrap();
+        assert!(matches!(p.algorithm, Algorithm::OutOfCore { .. }), "{p:?}");
+        r.memory = 1 << 20;
+        let e = plan(&r).unwrap_err().to_string();
+        assert!(e.contains("--memory"), "{e}");
+        r.memory = u64::MAX;
+        assert!(matches!(plan(&r).unwrap().algorithm, Algorithm::Ntt { .. }));
+    }
+
+    #[test]
+    fn square_skips_the_second_operand_in_memory() {
+        // A square keeps no store and no decoded limbs for B: 4N + lb words
+        // become 3N + (la + lb).
         let mut r = req(1 << 20, 1 << 20);
         let full = plan(&r).unwrap().ram_bytes;
         r.square = true;
         let sq = plan(&r).unwrap().ram_bytes;
-        assert!(sq < full * 6 / 10);
+        let n = 1u64 << 21;
+        assert_eq!(full - sq, 8 * (n + (1 << 20)) - 8 * (1 << 21));
     }
 }

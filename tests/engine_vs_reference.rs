@@ -575,15 +575,7 @@ fn expected_transform_len(coefficients: usize) -> usize {
 
 /// The NTT shape the planner gives a forced-NTT product of `la x lb` limbs.
 fn planned_shape(la: usize, lb: usize, radix: Radix) -> vastmul::fourstep::Shape {
-    let p = plan(&Request {
-        a_limbs: la,
-        b_limbs: lb,
-        radix,
-        square: false,
-        threads: 2,
-        force: Force::Ntt,
-    })
-    .expect("plan");
+    let p = plan(&Request::in_memory(la, lb, radix, false, 2, Force::Ntt)).expect("plan");
     match p.algorithm {
         Algorithm::Ntt { shape } => shape,
         other => panic!("{la}x{lb}: forced NTT planned as {other:?}"),
@@ -732,16 +724,9 @@ fn every_forced_path_matches_reference() {
 // ---------------------------------------------------------------------------
 
 fn auto_plan(la: usize, lb: usize, radix: Radix, square: bool) -> Algorithm {
-    plan(&Request {
-        a_limbs: la,
-        b_limbs: lb,
-        radix,
-        square,
-        threads: 2,
-        force: Force::Auto,
-    })
-    .expect("plan")
-    .algorithm
+    plan(&Request::in_memory(la, lb, radix, square, 2, Force::Auto))
+        .expect("plan")
+        .algorithm
 }
 
 /// Auto picks schoolbook for tiny products and for any product whose short
@@ -783,16 +768,9 @@ fn planner_auto_choices_match_expectations() {
         }
         // Forcing overrides the choice in both directions.
         let forced = |la, lb, force| {
-            plan(&Request {
-                a_limbs: la,
-                b_limbs: lb,
-                radix,
-                square: false,
-                threads: 1,
-                force,
-            })
-            .expect("plan")
-            .algorithm
+            plan(&Request::in_memory(la, lb, radix, false, 1, force))
+                .expect("plan")
+                .algorithm
         };
         assert_eq!(
             forced(100_000, 100_000, Force::Schoolbook),

@@ -417,8 +417,18 @@ pub fn write_operand<W: Write>(
 ) -> io::Result<()> {
     let (limbs, negative) = checked_for_writing(format, radix, negative, limbs)?;
     match format {
-        Format::Decimal => text::write_dec(text::TextOut::Stream(w), negative, limbs),
-        Format::Hex => text::write_hex(text::TextOut::Stream(w), negative, limbs),
+        Format::Decimal => text::write_dec(
+            text::TextOut::Stream(w),
+            negative,
+            limbs.len(),
+            &text::slice_fetch(limbs),
+        ),
+        Format::Hex => text::write_hex(
+            text::TextOut::Stream(w),
+            negative,
+            limbs.len(),
+            &text::slice_fetch(limbs),
+        ),
         Format::Limbs => limbs::write_raw(w, limbs),
         Format::Container => container::write(w, radix, negative, limbs),
     }
@@ -438,10 +448,11 @@ pub fn write_operand_file(
     match format {
         Format::Decimal | Format::Hex => {
             let (limbs, negative) = checked_for_writing(format, radix, negative, limbs)?;
+            let fetch = text::slice_fetch(limbs);
             if format == Format::Decimal {
-                text::write_dec(at, negative, limbs)
+                text::write_dec(at, negative, limbs.len(), &fetch)
             } else {
-                text::write_hex(at, negative, limbs)
+                text::write_hex(at, negative, limbs.len(), &fetch)
             }
         }
         Format::Limbs | Format::Container => {
@@ -449,6 +460,31 @@ pub fn write_operand_file(
             write_operand(&mut w, format, radix, negative, limbs)?;
             w.flush()
         }
+    }
+}
+
+/// Writes the `len` limbs that `fetch` supplies (top limb non-zero, or
+/// `len == 0` for zero) into a file as text, without holding them in RAM:
+/// for products that live on disk. Decimal and hexadecimal text only.
+pub fn write_text_file_from(
+    file: &File,
+    format: Format,
+    radix: Radix,
+    negative: bool,
+    len: usize,
+    fetch: &(dyn Fn(usize, &mut [u64]) -> io::Result<()> + Sync),
+) -> io::Result<()> {
+    checked_for_writing(format, radix, negative, &[])?;
+    let negative = negative && len > 0;
+    let at = text::TextOut::<io::Sink>::At(file);
+    match format {
+        Format::Decimal => text::write_dec(at, negative, len, fetch),
+        Format::Hex => text::write_hex(at, negative, len, fetch),
+        Format::Limbs | Format::Container => Err(io::Error::new(
+            io::ErrorKind::Unsupported,
+            "a product computed out of core is written as decimal or hexadecimal text; \
+             use --out-format dec or hex",
+        )),
     }
 }
 

@@ -422,10 +422,10 @@ pub(crate) fn put16_hex(out: &mut [u8], x: u64) {
 }
 
 /// Limbs formatted per rayon task when writing.
-const WRITE_TASK_LIMBS: usize = 1 << 15;
+const WRITE_TASK_LIMBS: usize = 1 << 13;
 /// Tasks formatted before their bytes are written: bounds the memory held
-/// (about 20 MB of decimal text) while keeping every core busy.
-const WRITE_BATCH_TASKS: usize = 32;
+/// (8 tasks of 8192 limbs: about 1.3 MB of decimal text and 0.5 MB of limbs) while keeping every core busy.
+const WRITE_BATCH_TASKS: usize = 8;
 
 /// Where text goes: a stream written in order, or a file written at known
 /// offsets from many threads at once.
@@ -449,27 +449,36 @@ impl<W: Write> TextOut<'_, W> {
     }
 }
 
-/// Writes `limbs` (little-endian, top limb non-zero, or empty for zero) as
-/// text: sign, top limb without leading zeros, the rest zero-padded to
-/// `width`, then a newline. Formatting runs in parallel; a stream is then
-/// written sequentially in large buffers, a file at offsets in parallel.
+/// Supplies limbs `first..first + out.len()` of a number being written.
+pub(crate) type Fetch<'a> = &'a (dyn Fn(usize, &mut [u64]) -> io::Result<()> + Sync);
+
+/// Writes the `len` limbs that `fetch` supplies (little-endian, top limb
+/// non-zero, or `len == 0` for zero) as text: sign, top limb without
+/// leading zeros, the rest zero-padded to `width`, then a newline. Limbs are
+/// fetched and formatted in parallel tasks, a bounded batch at a time, so a
+/// product on disk is written without holding it in RAM; a stream is then
+/// written sequentially, a file at offsets in parallel.
 fn write_text<W: Write, P: Fn(&mut [u8], u64) -> bool + Sync>(
     mut out: TextOut<'_, W>,
     negative: bool,
-    limbs: &[u64],
+    len: usize,
+    fetch: Fetch<'_>,
     width: usize,
     put: P,
 ) -> io::Result<()> {
-    let Some((&top, lower)) = limbs.split_last() else {
+    if len == 0 {
         return out.put(0, b"0\n");
-    };
+    }
+    let mut top = [0u64];
+    fetch(len - 1, &mut top)?;
+    let top = top[0];
     let mut head = Vec::with_capacity(width + 1);
     if negative {
         head.push(b'-');
     }
     let mut top_digits = vec![0u8; width];
     if !put(&mut top_digits, top) {
-        return Err(bad_limb(limbs.len() - 1, top));
+        return Err(bad_limb(len - 1, top));
     }
     let skip = top_digits
         .iter()
@@ -479,59 +488,75 @@ fn write_text<W: Write, P: Fn(&mut [u8], u64) -> bool + Sync>(
     out.put(0, &head)?;
     let body_start = head.len() as u64;
 
-    // `rchunks` yields the most significant limbs first, the order in which
-    // the text is written.
-    let tasks: Vec<&[u64]> = lower.rchunks(WRITE_TASK_LIMBS).collect();
-    let mut bufs: Vec<Vec<u8>> = vec![Vec::new(); WRITE_BATCH_TASKS.min(tasks.len())];
-    let mut limbs_before = 0usize;
-    for batch in tasks.chunks(WRITE_BATCH_TASKS) {
-        let file = match &out {
-            TextOut::At(f) => Some(*f),
-            TextOut::Stream(_) => None,
-        };
-        batch
-            .par_iter()
-            .zip(bufs.par_iter_mut())
+    // Tasks cover the lower limbs from the most significant down, the order
+    // in which the text is written: task t holds limbs [lo, hi).
+    let lower = len - 1;
+    let task_count = lower.div_ceil(WRITE_TASK_LIMBS);
+    let task_range = |t: usize| {
+        let hi = lower - t * WRITE_TASK_LIMBS;
+        (hi.saturating_sub(WRITE_TASK_LIMBS), hi)
+    };
+    let slots = WRITE_BATCH_TASKS.min(task_count);
+    let mut bufs: Vec<(Vec<u64>, Vec<u8>)> = vec![(Vec::new(), Vec::new()); slots];
+    let file = match &out {
+        TextOut::At(f) => Some(*f),
+        TextOut::Stream(_) => None,
+    };
+    let mut t0 = 0;
+    while t0 < task_count {
+        let batch = (task_count - t0).min(WRITE_BATCH_TASKS);
+        bufs[..batch]
+            .par_iter_mut()
             .enumerate()
-            .try_for_each(|(t, (chunk, buf))| {
-                buf.clear();
-                buf.resize(chunk.len() * width, 0);
-                for (j, (&x, out)) in chunk
+            .try_for_each(|(i, (limbs, text))| {
+                let t = t0 + i;
+                let (lo, hi) = task_range(t);
+                limbs.resize(hi - lo, 0);
+                fetch(lo, limbs)?;
+                text.clear();
+                text.resize(limbs.len() * width, 0);
+                for (&x, (j, out)) in limbs
                     .iter()
                     .rev()
-                    .zip(buf.chunks_exact_mut(width))
-                    .enumerate()
+                    .zip(text.chunks_exact_mut(width).enumerate())
                 {
                     if !put(out, x) {
-                        // Index from the top of the whole number, converted
-                        // back to a limb index.
-                        let from_top = limbs_before + t * WRITE_TASK_LIMBS + j;
-                        return Err(bad_limb(lower.len() - 1 - from_top, x));
+                        return Err(bad_limb(hi - 1 - j, x));
                     }
                 }
                 if let Some(f) = file {
-                    let offset =
-                        body_start + ((limbs_before + t * WRITE_TASK_LIMBS) * width) as u64;
-                    TextOut::<W>::At(f).put(offset, buf)?;
+                    let offset = body_start + ((t * WRITE_TASK_LIMBS) * width) as u64;
+                    TextOut::<W>::At(f).put(offset, text)?;
                 }
                 Ok(())
             })?;
-        let batch_limbs = batch.iter().map(|c| c.len()).sum::<usize>();
+        let first = t0 * WRITE_TASK_LIMBS;
+        let batch_limbs = (first + batch * WRITE_TASK_LIMBS).min(lower) - first;
         match file {
             None => {
-                for buf in &bufs[..batch.len()] {
-                    out.put(0, buf)?;
+                for (_, text) in &bufs[..batch] {
+                    out.put(0, text)?;
                 }
             }
             Some(f) => crate::output::start_writeback(
                 f,
-                body_start + (limbs_before * width) as u64,
+                body_start + (first * width) as u64,
                 (batch_limbs * width) as u64,
             ),
         }
-        limbs_before += batch_limbs;
+        t0 += batch;
     }
-    out.put(body_start + (lower.len() * width) as u64, b"\n")
+    out.put(body_start + (lower * width) as u64, b"\n")
+}
+
+/// A [`Fetch`] over limbs in memory.
+pub(crate) fn slice_fetch(
+    limbs: &[u64],
+) -> impl Fn(usize, &mut [u64]) -> io::Result<()> + Sync + '_ {
+    move |first, out| {
+        out.copy_from_slice(&limbs[first..first + out.len()]);
+        Ok(())
+    }
 }
 
 fn bad_limb(index: usize, value: u64) -> io::Error {
@@ -558,18 +583,34 @@ fn put_hex_checked(out: &mut [u8], x: u64) -> bool {
 pub(crate) fn write_dec<W: Write>(
     out: TextOut<'_, W>,
     negative: bool,
-    limbs: &[u64],
+    len: usize,
+    fetch: Fetch<'_>,
 ) -> io::Result<()> {
-    write_text(out, negative, limbs, DEC_DIGITS_PER_LIMB, put_dec_checked)
+    write_text(
+        out,
+        negative,
+        len,
+        fetch,
+        DEC_DIGITS_PER_LIMB,
+        put_dec_checked,
+    )
 }
 
 /// Writes base-2^64 limbs as canonical lowercase hexadecimal text.
 pub(crate) fn write_hex<W: Write>(
     out: TextOut<'_, W>,
     negative: bool,
-    limbs: &[u64],
+    len: usize,
+    fetch: Fetch<'_>,
 ) -> io::Result<()> {
-    write_text(out, negative, limbs, HEX_DIGITS_PER_LIMB, put_hex_checked)
+    write_text(
+        out,
+        negative,
+        len,
+        fetch,
+        HEX_DIGITS_PER_LIMB,
+        put_hex_checked,
+    )
 }
 
 #[cfg(test)]
@@ -671,7 +712,13 @@ mod tests {
     fn bad_limb_is_reported_with_its_index() {
         let mut limbs = vec![1u64; WRITE_TASK_LIMBS * 3 + 5];
         limbs[WRITE_TASK_LIMBS + 2] = DEC_BASE;
-        let err = write_dec(TextOut::Stream(&mut Vec::new()), false, &limbs).unwrap_err();
+        let err = write_dec(
+            TextOut::Stream(&mut Vec::new()),
+            false,
+            limbs.len(),
+            &slice_fetch(&limbs),
+        )
+        .unwrap_err();
         assert_eq!(err.kind(), io::ErrorKind::InvalidInput);
         assert!(
             err.to_string()
@@ -681,7 +728,13 @@ mod tests {
         let top = limbs.len() - 1;
         limbs[WRITE_TASK_LIMBS + 2] = 0;
         limbs[top] = u64::MAX;
-        let err = write_dec(TextOut::Stream(&mut Vec::new()), false, &limbs).unwrap_err();
+        let err = write_dec(
+            TextOut::Stream(&mut Vec::new()),
+            false,
+            limbs.len(),
+            &slice_fetch(&limbs),
+        )
+        .unwrap_err();
         assert!(err.to_string().contains(&format!("limb {top} ")), "{err}");
     }
 }

@@ -1,0 +1,179 @@
+//! The out-of-core path: budgets of a few MiB force scratch files on
+//! 10^5..10^6-limb operands, and the products must match num-bigint
+//! exactly, with no scratch file left behind.
+
+mod common;
+
+use common::{assert_product, Rng};
+use std::path::Path;
+use vastmul::engine::{execute_to, Product};
+use vastmul::plan::{plan, Algorithm, Force, Request};
+use vastmul::storage::Store;
+use vastmul::Radix;
+
+/// Plans under `memory` bytes, asserts the plan is out of core, runs it with
+/// scratch in `dir` and returns the product's limbs.
+fn ooc_multiply(a: &[u64], b: &[u64], radix: Radix, memory: u64, dir: &Path) -> Vec<u64> {
+    let mut req = Request::in_memory(
+        a.len(),
+        b.len(),
+        radix,
+        a == b,
+        rayon::current_num_threads(),
+        Force::Auto,
+    );
+    req.memory = memory;
+    let p = plan(&req).expect("plan");
+    assert!(
+        matches!(p.algorithm, Algorithm::OutOfCore { .. }),
+        "{:?}",
+        p.algorithm
+    );
+    assert!(p.ram_bytes <= memory);
+    let product = execute_to(&p, a, b, dir).expect("out-of-core product");
+    let limbs = match &product {
+        Product::Disk { store, len } => {
+            let mut v = vec![0u64; *len];
+            store.read(0, &mut v).unwrap();
+            v
+        }
+        Product::Ram(_) => panic!("an out-of-core plan returned a product in RAM"),
+    };
+    drop(product);
+    let left: Vec<_> = std::fs::read_dir(dir).unwrap().collect();
+    assert!(left.is_empty(), "scratch files left behind: {left:?}");
+    limbs
+}
+
+#[test]
+fn small_budgets_give_exact_products_in_both_radixes() {
+    let dir = tempfile::tempdir().unwrap();
+    let mut rng = Rng::new(0x00c0_ffee);
+    for radix in [Radix::Binary, Radix::Decimal] {
+        for (la, lb, mib) in [
+            (100_000, 100_000, 10),
+            (300_000, 250_000, 12),
+            (1_000_000, 1_000_000, 24),
+        ] {
+            let a = rng.limbs(la, radix);
+            let b = rng.limbs(lb, radix);
+            let c = ooc_multiply(&a, &b, radix, mib << 20, dir.path());
+            assert_product(
+                &c,
+                &a,
+                &b,
+                radix,
+                &format!("{radix:?} {la}x{lb} under {mib} MiB"),
+            );
+        }
+    }
+}
+
+#[test]
+fn squares_and_unbalanced_pairs_out_of_core() {
+    let dir = tempfile::tempdir().unwrap();
+    let mut rng = Rng::new(77);
+    for radix in [Radix::Binary, Radix::Decimal] {
+        let a = rng.limbs(200_000, radix);
+        let sq = ooc_multiply(&a, &a, radix, 10 << 20, dir.path());
+        assert_product(&sq, &a, &a, radix, "square");
+        let short = rng.limbs(3_000, radix);
+        let c = ooc_multiply(&a, &short, radix, 10 << 20, dir.path());
+        assert_product(&c, &a, &short, radix, "unbalanced");
+        // all maximal limbs: carries ripple through every window
+        let max = vec![radix.max_limb(); 150_000];
+        let c = ooc_multiply(&max, &max, radix, 10 << 20, dir.path());
+        assert_product(&c, &max, &max, radix, "all maximal");
+    }
+}
+
+#[test]
+fn budget_below_the_smallest_plan_names_the_minimum() {
+    let mut req = Request::in_memory(1_000_000, 1_000_000, Radix::Binary, false, 2, Force::Auto);
+    req.memory = 1 << 20;
+    let e = plan(&req).unwrap_err();
+    let text = e.to_string();
+    assert!(text.contains("smallest plan needs"), "{text}");
+    assert!(text.contains("--memory"), "{text}");
+    assert_eq!(e.exit_code(), vastmul::error::exit::RESOURCES);
+}
+
+#[test]
+fn cli_out_of_core_matches_in_memory_and_checks_scratch() {
+    let t = tempfile::tempdir().unwrap();
+    let d = t.path();
+    let bin = env!("CARGO_BIN_EXE_vastmul");
+    let run = |args: &[&str]| {
+        std::process::Command::new(bin)
+            .args(args)
+            .current_dir(d)
+            .output()
+            .unwrap()
+    };
+    assert!(
+        run(&["gen", "--digits", "3000000", "--seed", "9", "-o", "a.txt"])
+            .status
+            .success()
+    );
+    assert!(
+        run(&["gen", "--digits", "2000000", "--seed", "8", "-o", "b.txt"])
+            .status
+            .success()
+    );
+    let o = run(&["mul", "a.txt", "b.txt", "-o", "ram.txt"]);
+    assert!(o.status.success(), "{}", String::from_utf8_lossy(&o.stderr));
+    std::fs::create_dir(d.join("scr")).unwrap();
+    let o = run(&[
+        "mul",
+        "a.txt",
+        "b.txt",
+        "-o",
+        "disk.txt",
+        "--memory",
+        "24MiB",
+        "--scratch",
+        "scr",
+        "--json",
+    ]);
+    assert!(o.status.success(), "{}", String::from_utf8_lossy(&o.stderr));
+    assert!(String::from_utf8_lossy(&o.stdout).contains("out_of_core"));
+    assert_eq!(
+        std::fs::read(d.join("ram.txt")).unwrap(),
+        std::fs::read(d.join("disk.txt")).unwrap()
+    );
+    assert_eq!(
+        std::fs::read_dir(d.join("scr")).unwrap().count(),
+        0,
+        "scratch left behind"
+    );
+    // a missing scratch directory and an impossible budget: clear errors, no output
+    let o = run(&[
+        "mul",
+        "a.txt",
+        "b.txt",
+        "-o",
+        "x.txt",
+        "--memory",
+        "24MiB",
+        "--scratch",
+        "nowhere",
+    ]);
+    assert_eq!(
+        o.status.code(),
+        Some(2),
+        "{}",
+        String::from_utf8_lossy(&o.stderr)
+    );
+    assert!(String::from_utf8_lossy(&o.stderr).contains("nowhere"));
+    let o = run(&["mul", "a.txt", "b.txt", "-o", "x.txt", "--memory", "1MiB"]);
+    assert_eq!(
+        o.status.code(),
+        Some(5),
+        "{}",
+        String::from_utf8_lossy(&o.stderr)
+    );
+    assert!(!d.join("x.txt").exists());
+    let o = run(&["mul", "a.txt", "b.txt", "-o", "x.txt", "--memory", "4 GB"]);
+    assert_eq!(o.status.code(), Some(2));
+    assert!(!String::from_utf8_lossy(&o.stderr).contains("panicked"));
+}
