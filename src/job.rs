@@ -65,6 +65,17 @@ impl LimbSource for Operand {
     }
 }
 
+/// An operand read without keeping its pages resident: each read is
+/// followed by a release of the pages it touched (out-of-core plans).
+struct Released<'a>(&'a Operand);
+
+impl LimbSource for Released<'_> {
+    fn fill_limbs(&self, first: usize, out: &mut [u64]) {
+        self.0.read_limbs(first, out);
+        self.0.release_limbs(first, out.len());
+    }
+}
+
 /// True when both files are the same file (same device and inode).
 fn same_file(a: &Path, b: &Path) -> bool {
     use std::os::unix::fs::MetadataExt;
@@ -233,7 +244,11 @@ pub fn multiply_files(opts: &MulOptions) -> Result<MulReport> {
     let open_seconds = started.elapsed().as_secs_f64();
 
     let compute = Instant::now();
-    let product = engine::execute_to(&plan, a, b, &dir)?;
+    let product = if plan.scratch_bytes > 0 {
+        engine::execute_to(&plan, &Released(a), &Released(b), &dir)?
+    } else {
+        engine::execute_to(&plan, a, b, &dir)?
+    };
     let compute_seconds = compute.elapsed().as_secs_f64();
 
     let write = Instant::now();

@@ -321,8 +321,14 @@ fn plan_out_of_core(req: &Request, mut plan: Plan, coefficients: usize) -> Resul
     while window > 1 << 12 && window_ram(window) > req.memory / 4 {
         window /= 2;
     }
+    // Input pages are released after each read, so only the segments in
+    // flight are resident: a column block's rows, each at most 19 bytes a
+    // limb plus a page at either end.
+    let input = |shape: Shape| {
+        (shape.rows as u64 * (TEXT_BYTES_PER_LIMB * shape.lanes as u64 + 8192)).min(req.input_bytes)
+    };
     let ram = |shape: Shape, window: usize| {
-        FIXED_RAM + req.input_bytes + window_ram(window) + threads * per_thread_ram(shape)
+        FIXED_RAM + window_ram(window) + threads * (per_thread_ram(shape) + input(shape))
     };
     loop {
         shape.lanes = shape.cols;

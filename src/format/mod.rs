@@ -322,7 +322,7 @@ impl Operand {
                 (n, digits)
             }
         };
-        Ok(Operand {
+        let op = Operand {
             path: path.to_path_buf(),
             format,
             radix,
@@ -331,7 +331,11 @@ impl Operand {
             digit_count: digit_count.max(1),
             layout,
             data,
-        })
+        };
+        // Validation touched every page; drop them from resident memory so
+        // that opening an operand larger than the budget does not use it up.
+        op.release_limbs(0, op.limb_count);
+        Ok(op)
     }
 
     /// The path the operand was opened from.
@@ -386,6 +390,41 @@ impl Operand {
             Layout::Hex(d) => text::read_hex(&bytes[d.clone()], first, out),
             Layout::Words(w) => limbs::read_words(&bytes[w.clone()], first, out),
         }
+    }
+
+    /// Drops the mapped pages of the bytes behind limbs `first..first + n`
+    /// from this process's resident memory. They stay in the page cache, so
+    /// a later read faults them back in cheaply; out-of-core passes call this
+    /// after each read so that the input's pages do not pile up in the
+    /// process and count against its memory budget.
+    pub fn release_limbs(&self, first: usize, n: usize) {
+        let Backing::Mapped(map) = &self.data else {
+            return;
+        };
+        // Limb i of text ends width*i bytes before the end of the digits; of
+        // raw words it starts 8*i bytes after their start.
+        let (lo, hi) = match &self.layout {
+            Layout::Words(w) => (w.start + 8 * first, (w.start + 8 * (first + n)).min(w.end)),
+            Layout::Decimal(d) | Layout::Hex(d) => {
+                let width = if matches!(self.layout, Layout::Decimal(_)) {
+                    DEC_DIGITS_PER_LIMB
+                } else {
+                    HEX_DIGITS_PER_LIMB
+                };
+                (
+                    d.end.saturating_sub(width * (first + n)).max(d.start),
+                    d.end.saturating_sub(width * first).max(d.start),
+                )
+            }
+        };
+        if lo >= hi {
+            return;
+        }
+        // SAFETY: the mapping is read-only and file-backed: dropping its
+        // pages loses nothing (they are read again from the file on the next
+        // access), and the slices of earlier reads are no longer in use.
+        let _ =
+            unsafe { map.unchecked_advise_range(memmap2::UncheckedAdvice::DontNeed, lo, hi - lo) };
     }
 
     /// All significant limbs, least significant first, parsed in parallel.

@@ -1,0 +1,69 @@
+#!/usr/bin/env bash
+# bench-ooc.sh - the same product in RAM and out of core, side by side.
+#
+# Generates two decimal operands with `vastmul gen`, multiplies them once
+# with the default (in-memory) plan and once under a memory budget that
+# forces the out-of-core plan, and reports for each: wall time, peak RSS
+# (from /usr/bin/time -v), the bytes the plan says each pass reads and
+# writes, and whether both products have the same BLAKE3.
+#
+# Usage: scripts/bench-ooc.sh [DIGITS] [BUDGET]
+#   DIGITS  digits per operand (default 100000000)
+#   BUDGET  --memory for the out-of-core run (default 256MiB)
+# Environment: OOC_DIR (data and scratch folder, default target/ooc),
+#   OOC_THREADS (default: all cores), OOC_SKIP_RAM=1 (out-of-core run only,
+#   for operands whose in-memory plan does not fit this machine).
+# Disk: two operands of DIGITS bytes, two products of 2*DIGITS bytes, and
+# scratch of about 4 * 8 * (next power of two above 2*DIGITS/19) bytes.
+set -euo pipefail
+cd "$(dirname "$0")/.."
+digits=${1:-100000000}
+budget=${2:-256MiB}
+dir=${OOC_DIR:-target/ooc}
+threads=${OOC_THREADS:-$(nproc)}
+mkdir -p "$dir/scratch"
+cargo build --release --quiet
+v=target/release/vastmul
+[ -x /usr/bin/time ] || { echo "needs GNU time at /usr/bin/time (apt-get install time)"; exit 2; }
+
+for seed in 11 12; do
+  f="$dir/op-$digits-$seed.txt"
+  [ -f "$f" ] || { echo "generating $f"; "$v" gen --digits "$digits" --seed "$seed" -o "$f"; }
+done
+a="$dir/op-$digits-11.txt"; b="$dir/op-$digits-12.txt"
+
+run() { # label, output, extra args...
+  local label=$1 out=$2; shift 2
+  local log="$dir/time-$label.log"
+  rm -f "$out"
+  /usr/bin/time -v "$v" mul "$a" "$b" -o "$out" --threads "$threads" "$@" 2> "$log" >/dev/null || { cat "$log"; exit 1; }
+  local wall rss
+  wall=$(grep "Elapsed (wall clock)" "$log" | awk '{print $NF}')
+  rss=$(grep "Maximum resident set size" "$log" | awk '{print $NF}')
+  echo "| $label | $wall | $((rss / 1024)) | $(b3sum_of "$out") |"
+}
+b3sum_of() { "$v" info "$1" --json | grep '"blake3"' | cut -d'"' -f4 | cut -c1-16; }
+
+echo "# out-of-core benchmark: two $digits-digit decimal operands, $threads threads"
+echo "- date: $(date -u), $(uname -m), $(grep -m1 'model name' /proc/cpuinfo | cut -d: -f2 | xargs), $(nproc) cores, $(free -g | awk '/Mem:/{print $2}') GiB RAM"
+echo "- vastmul commit $(git rev-parse --short HEAD)"
+echo
+echo "## Plan under --memory $budget"
+"$v" plan "$a" "$b" --memory "$budget" --threads "$threads" --json > "$dir/plan.json"
+python3 - "$dir/plan.json" <<'PY'
+import json, sys
+p = json.load(open(sys.argv[1]))
+print(f"- algorithm: {p['algorithm']}")
+print(f"- RAM planned: {p['ram_bytes'] / 2**20:.1f} MiB, scratch: {p['scratch_bytes'] / 2**20:.1f} MiB")
+print("| pass | reads MiB | writes MiB |\n|---|---|---|")
+for s in p['passes']:
+    print(f"| {s['name']} | {s['read_bytes'] / 2**20:.1f} | {s['write_bytes'] / 2**20:.1f} |")
+PY
+echo
+echo "| run | wall (h:mm:ss) | peak RSS MiB | product BLAKE3 (prefix) |"
+echo "|---|---|---|---|"
+[ "${OOC_SKIP_RAM:-0}" = 1 ] || run in-memory "$dir/product-ram.txt"
+run "out-of-core-$budget" "$dir/product-ooc.txt" --memory "$budget" --scratch "$dir/scratch"
+if [ "${OOC_SKIP_RAM:-0}" != 1 ]; then
+  if cmp -s "$dir/product-ram.txt" "$dir/product-ooc.txt"; then echo; echo "products identical: yes"; else echo; echo "products identical: NO"; exit 1; fi
+fi
