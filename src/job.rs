@@ -245,6 +245,8 @@ pub fn multiply_files(opts: &MulOptions) -> Result<MulReport> {
 
     let compute = Instant::now();
     let product = if plan.scratch_bytes > 0 {
+        a.expect_scattered_reads();
+        b.expect_scattered_reads();
         engine::execute_to(&plan, &Released(a), &Released(b), &dir)?
     } else {
         engine::execute_to(&plan, a, b, &dir)?

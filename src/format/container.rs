@@ -76,7 +76,15 @@ fn field_u64(bytes: &[u8], at: usize) -> u64 {
 const RECREATE: &str = "the file is damaged; recreate it from its source";
 
 /// Validates a whole container: header, length, hash and limb values.
-pub(crate) fn scan(path: &Path, bytes: &[u8]) -> Result<ContainerLayout> {
+/// Bytes of payload hashed or checked before their pages are released (a
+/// multiple of the limb size).
+const HASH_WINDOW: usize = 4 << 20;
+
+pub(crate) fn scan(
+    path: &Path,
+    bytes: &[u8],
+    release: super::text::Release<'_>,
+) -> Result<ContainerLayout> {
     let err =
         |at: usize, what: String, fix: &str| Err(Error::input(path, Some(at as u64), what, fix));
     if !has_magic(bytes) {
@@ -175,7 +183,14 @@ pub(crate) fn scan(path: &Path, bytes: &[u8]) -> Result<ContainerLayout> {
     // corruption is the honest diagnosis whatever the bytes now say.
     let mut stored = [0u8; 32];
     stored.copy_from_slice(&bytes[32..64]);
-    let actual = blake3::Hasher::new().update_rayon(payload).finalize();
+    // Hashed in windows whose pages are released as the hash moves on, so
+    // that a mapped container larger than the memory budget can be opened.
+    let mut hasher = blake3::Hasher::new();
+    for (w, window) in payload.chunks(HASH_WINDOW).enumerate() {
+        hasher.update_rayon(window);
+        release(HEADER_LEN + w * HASH_WINDOW, window.len());
+    }
+    let actual = hasher.finalize();
     if actual != blake3::Hash::from_bytes(stored) {
         return err(
             32,
@@ -204,15 +219,23 @@ pub(crate) fn scan(path: &Path, bytes: &[u8]) -> Result<ContainerLayout> {
         );
     }
     if radix == Radix::Decimal {
+        // Checked in windows like the hash, releasing pages behind it.
         const TASK: usize = 1 << 14;
-        let bad = payload
-            .par_chunks(TASK * LIMB_BYTES)
-            .enumerate()
-            .find_map_first(|(t, chunk)| {
-                (0..chunk.len() / LIMB_BYTES)
-                    .find(|&i| word(chunk, i) >= DEC_BASE)
-                    .map(|i| t * TASK + i)
-            });
+        let mut bad = None;
+        for (w, window) in payload.chunks(HASH_WINDOW).enumerate() {
+            bad = window
+                .par_chunks(TASK * LIMB_BYTES)
+                .enumerate()
+                .find_map_first(|(t, chunk)| {
+                    (0..chunk.len() / LIMB_BYTES)
+                        .find(|&i| word(chunk, i) >= DEC_BASE)
+                        .map(|i| (w * HASH_WINDOW) / LIMB_BYTES + t * TASK + i)
+                });
+            release(HEADER_LEN + w * HASH_WINDOW, window.len());
+            if bad.is_some() {
+                break;
+            }
+        }
         if let Some(i) = bad {
             return err(
                 HEADER_LEN + i * LIMB_BYTES,

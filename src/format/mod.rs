@@ -45,6 +45,21 @@ use crate::radix::{DEC_DIGITS_PER_LIMB, HEX_DIGITS_PER_LIMB};
 use crate::{Error, Radix, Result};
 use text::TextKind;
 
+/// Drops the pages of bytes `offset..offset + len` of a mapped file from
+/// this process's resident memory (nothing for a file read into memory).
+fn release_bytes(data: &Backing, offset: usize, len: usize) {
+    let Backing::Mapped(map) = data else {
+        return;
+    };
+    if len == 0 {
+        return;
+    }
+    // SAFETY: the mapping is read-only and file-backed: dropping its pages
+    // loses nothing (the next access reads them again from the file), and
+    // the callers are done with these bytes.
+    let _ = unsafe { map.unchecked_advise_range(memmap2::UncheckedAdvice::DontNeed, offset, len) };
+}
+
 /// An operand file format.
 #[derive(Clone, Copy, Debug, PartialEq, Eq, Hash, Serialize, Deserialize)]
 #[serde(rename_all = "lowercase")]
@@ -265,6 +280,9 @@ impl Operand {
     pub fn open(path: &Path, format: Option<Format>) -> Result<Operand> {
         let data = load(path)?;
         let bytes = data.bytes();
+        // Validation walks the whole file; the pages it is done with are
+        // dropped from resident memory as it goes (see `release_bytes`).
+        let release = |offset: usize, len: usize| release_bytes(&data, offset, len);
         let format = match format {
             Some(f) => Some(f),
             None if container::has_magic(bytes) => Some(Format::Container),
@@ -277,7 +295,7 @@ impl Operand {
                     Some(Format::Hex) => Some(TextKind::Hex),
                     _ => None,
                 };
-                let t = text::scan(path, bytes, want)?;
+                let t = text::scan(path, bytes, want, &release)?;
                 match t.kind {
                     TextKind::Decimal => (
                         Format::Decimal,
@@ -298,7 +316,7 @@ impl Operand {
                 (Format::Limbs, Radix::Binary, false, Layout::Words(words))
             }
             Some(Format::Container) => {
-                let c = container::scan(path, bytes)?;
+                let c = container::scan(path, bytes, &release)?;
                 (
                     Format::Container,
                     c.radix,
@@ -332,9 +350,8 @@ impl Operand {
             layout,
             data,
         };
-        // Validation touched every page; drop them from resident memory so
-        // that opening an operand larger than the budget does not use it up.
-        op.release_limbs(0, op.limb_count);
+        // Whatever validation left resident (leading zeros, headers) goes too.
+        release_bytes(&op.data, 0, op.data.bytes().len());
         Ok(op)
     }
 
@@ -392,15 +409,22 @@ impl Operand {
         }
     }
 
+    /// Tells the kernel that reads will be scattered: it then maps only the
+    /// page a read touches, not its neighbours ("fault-around"), so that
+    /// [`Operand::release_limbs`] really keeps the resident pages to those
+    /// in use.
+    pub fn expect_scattered_reads(&self) {
+        if let Backing::Mapped(map) = &self.data {
+            let _ = map.advise(memmap2::Advice::Random);
+        }
+    }
+
     /// Drops the mapped pages of the bytes behind limbs `first..first + n`
     /// from this process's resident memory. They stay in the page cache, so
     /// a later read faults them back in cheaply; out-of-core passes call this
     /// after each read so that the input's pages do not pile up in the
     /// process and count against its memory budget.
     pub fn release_limbs(&self, first: usize, n: usize) {
-        let Backing::Mapped(map) = &self.data else {
-            return;
-        };
         // Limb i of text ends width*i bytes before the end of the digits; of
         // raw words it starts 8*i bytes after their start.
         let (lo, hi) = match &self.layout {
@@ -417,14 +441,15 @@ impl Operand {
                 )
             }
         };
-        if lo >= hi {
-            return;
+        if lo < hi {
+            // A fault maps the neighbouring cached pages too ("fault-around",
+            // 64 KiB by default), so release whole aligned 64 KiB spans.
+            const AROUND: usize = 64 << 10;
+            let lo = lo / AROUND * AROUND;
+            let hi = hi.div_ceil(AROUND) * AROUND;
+            let hi = hi.min(self.data.bytes().len());
+            release_bytes(&self.data, lo, hi - lo);
         }
-        // SAFETY: the mapping is read-only and file-backed: dropping its
-        // pages loses nothing (they are read again from the file on the next
-        // access), and the slices of earlier reads are no longer in use.
-        let _ =
-            unsafe { map.unchecked_advise_range(memmap2::UncheckedAdvice::DontNeed, lo, hi - lo) };
     }
 
     /// All significant limbs, least significant first, parsed in parallel.

@@ -70,30 +70,55 @@ fn is_bad_hex(b: u8) -> bool {
 /// Blocks are checked in parallel with a branch-free fold, which the
 /// compiler vectorises; only a block known to hold a bad byte is searched
 /// byte by byte. `find_map_first` keeps the answer the earliest one no
-/// matter which thread finds its block first.
-fn first_bad<F: Fn(u8) -> bool + Sync>(body: &[u8], bad: F) -> Option<usize> {
-    body.par_chunks(SCAN_BLOCK)
-        .enumerate()
-        .find_map_first(|(k, block)| {
-            let any = block
-                .chunks(64)
-                .any(|lane| lane.iter().fold(false, |acc, &b| acc | bad(b)));
-            if !any {
-                return None;
-            }
-            block
-                .iter()
-                .position(|&b| bad(b))
-                .map(|p| k * SCAN_BLOCK + p)
-        })
+/// matter which thread finds its block first. The body is scanned in
+/// windows, and `release(offset, len)` is told after each window, so a
+/// memory-mapped operand's pages can be dropped as the scan moves on.
+fn first_bad<F: Fn(u8) -> bool + Sync>(body: &[u8], bad: F, release: Release<'_>) -> Option<usize> {
+    let mut start = 0;
+    while start < body.len() {
+        let window = &body[start..(start + SCAN_WINDOW).min(body.len())];
+        let found = window
+            .par_chunks(SCAN_BLOCK)
+            .enumerate()
+            .find_map_first(|(k, block)| {
+                let any = block
+                    .chunks(64)
+                    .any(|lane| lane.iter().fold(false, |acc, &b| acc | bad(b)));
+                if !any {
+                    return None;
+                }
+                block
+                    .iter()
+                    .position(|&b| bad(b))
+                    .map(|p| k * SCAN_BLOCK + p)
+            });
+        release(start, window.len());
+        if let Some(p) = found {
+            return Some(start + p);
+        }
+        start += window.len();
+    }
+    None
 }
+
+/// Bytes validated before their pages are released: large enough to keep
+/// both cores busy, small beside any memory budget.
+const SCAN_WINDOW: usize = 4 << 20;
+
+/// Told `(offset, len)` of each stretch of bytes a scan is done with.
+pub(crate) type Release<'a> = &'a (dyn Fn(usize, usize) + Sync);
 
 /// Validates a whole text operand and locates its digits.
 ///
 /// `kind: None` detects decimal or hexadecimal: a `0x` prefix, or any
 /// letter `a-f`/`A-F` in an otherwise valid hexadecimal body, means
 /// hexadecimal; a body of only `0-9` is decimal.
-pub(crate) fn scan(path: &Path, bytes: &[u8], kind: Option<TextKind>) -> Result<TextLayout> {
+pub(crate) fn scan(
+    path: &Path,
+    bytes: &[u8],
+    kind: Option<TextKind>,
+    release: Release<'_>,
+) -> Result<TextLayout> {
     let mut end = bytes.len();
     if bytes.ends_with(b"\r\n") {
         end -= 2;
@@ -131,24 +156,25 @@ pub(crate) fn scan(path: &Path, bytes: &[u8], kind: Option<TextKind>) -> Result<
         ));
     }
     let body = &bytes[pos..end];
+    let release_body = |o: usize, l: usize| release(pos + o, l);
     let bad_at = |offset: usize, expected: Expected| {
         let (what, fix) = describe_bad_byte(bytes, pos + offset, end, expected);
         Err(Error::input(path, Some((pos + offset) as u64), what, fix))
     };
     let kind = match kind {
-        Some(TextKind::Decimal) => match first_bad(body, is_bad_dec) {
+        Some(TextKind::Decimal) => match first_bad(body, is_bad_dec, &release_body) {
             Some(p) => return bad_at(p, Expected::Decimal),
             None => TextKind::Decimal,
         },
-        Some(TextKind::Hex) => match first_bad(body, is_bad_hex) {
+        Some(TextKind::Hex) => match first_bad(body, is_bad_hex, &release_body) {
             Some(p) => return bad_at(p, Expected::Hex),
             None => TextKind::Hex,
         },
-        None => match first_bad(body, is_bad_dec) {
+        None => match first_bad(body, is_bad_dec, &release_body) {
             None => TextKind::Decimal,
             Some(p) if is_bad_hex(body[p]) => return bad_at(p, Expected::Either),
             // Everything before `p` is a decimal digit, hence hexadecimal.
-            Some(p) => match first_bad(&body[p..], is_bad_hex) {
+            Some(p) => match first_bad(&body[p..], is_bad_hex, &|o, l| release(pos + p + o, l)) {
                 Some(q) => return bad_at(p + q, Expected::HexByLetters),
                 None => TextKind::Hex,
             },
@@ -679,13 +705,16 @@ mod tests {
     #[test]
     fn first_bad_finds_the_earliest_across_blocks() {
         let mut body = vec![b'7'; SCAN_BLOCK * 5 + 123];
-        assert_eq!(first_bad(&body, is_bad_dec), None);
+        assert_eq!(first_bad(&body, is_bad_dec, &|_, _| {}), None);
         body[SCAN_BLOCK * 4 + 9] = b'x';
         body[SCAN_BLOCK * 3 - 1] = b'y';
         body[SCAN_BLOCK * 3 + 1] = b'z';
-        assert_eq!(first_bad(&body, is_bad_dec), Some(SCAN_BLOCK * 3 - 1));
+        assert_eq!(
+            first_bad(&body, is_bad_dec, &|_, _| {}),
+            Some(SCAN_BLOCK * 3 - 1)
+        );
         body[0] = b' ';
-        assert_eq!(first_bad(&body, is_bad_dec), Some(0));
+        assert_eq!(first_bad(&body, is_bad_dec, &|_, _| {}), Some(0));
 
         // Bad bytes in almost every block, searched by many threads: only an
         // ordered search reports the earliest every time.
@@ -702,7 +731,7 @@ mod tests {
             .unwrap();
         for _ in 0..20 {
             assert_eq!(
-                pool.install(|| first_bad(&body, is_bad_dec)),
+                pool.install(|| first_bad(&body, is_bad_dec, &|_, _| {})),
                 Some(SCAN_BLOCK * 60 + 60)
             );
         }
