@@ -83,10 +83,46 @@ where
     Ok(out)
 }
 
-/// The NTT path: all three primes' column transforms of `a` in one read of
-/// it, then prime by prime the column transform of `b` into one reused
-/// store, the row pass and the inverse columns; finally the CRT and carry
-/// pass write the limbs into that reused store.
+/// The transform passes of both NTT paths: all three primes' column
+/// transforms of `a` from one read of it; then prime by prime the column
+/// transform of `b` into `spare` (skipped for a square), the row pass with
+/// the pointwise product, and the inverse columns. Afterwards `stores_a`
+/// hold the residues of the convolution, checked to vanish past its end.
+fn transform_passes<S, A, B>(
+    fs: &FourStep,
+    plan: &Plan,
+    a: &A,
+    b: &B,
+    stores_a: &[S; 3],
+    spare: Option<&S>,
+) -> Result<()>
+where
+    S: Store,
+    A: LimbSource + ?Sized,
+    B: LimbSource + ?Sized,
+{
+    let (la, lb) = (plan.a_limbs, plan.b_limbs);
+    let refs: Vec<&S> = stores_a.iter().collect();
+    fs.forward_columns(
+        &|f, o: &mut [u64]| a.fill_limbs(f, o),
+        la,
+        &[0, 1, 2],
+        &refs,
+    )?;
+    let b_store = if plan.square { None } else { spare };
+    for (k, store) in stores_a.iter().enumerate() {
+        if let Some(s) = b_store {
+            fs.forward_columns(&|f, o: &mut [u64]| b.fill_limbs(f, o), lb, &[k], &[s])?;
+        }
+        fs.rows(k, store, b_store)?;
+        fs.inverse_columns(k, store)?;
+    }
+    fs.check_zero_tail(&refs, la + lb - 1)
+}
+
+/// The NTT in RAM: [`transform_passes`] over RAM stores, then the CRT and
+/// carry pass write the limbs into the store B used (or a new buffer for a
+/// square).
 fn ntt_product<A, B>(plan: &Plan, shape: Shape, a: &A, b: &B) -> Result<WordBuf>
 where
     A: LimbSource + ?Sized,
@@ -101,13 +137,6 @@ where
         RamStore::zeroed(n),
         RamStore::zeroed(n),
     ];
-    let a_refs: Vec<&RamStore> = stores_a.iter().collect();
-    fs.forward_columns(
-        &|f, o: &mut [u64]| a.fill_limbs(f, o),
-        la,
-        &[0, 1, 2],
-        &a_refs,
-    )?;
     let spare = (!plan.square).then(|| RamStore::zeroed(n.max(plan.product_limbs)));
     // B is read once per prime: decode it once (text parsing is not free),
     // and let the column passes copy from the decoded limbs.
@@ -116,19 +145,8 @@ where
     } else {
         read_all(b, lb)
     };
-    for (k, store) in stores_a.iter().enumerate() {
-        if let Some(spare) = &spare {
-            fs.forward_columns(
-                &|f, o: &mut [u64]| b_limbs.fill_limbs(f, o),
-                lb,
-                &[k],
-                &[spare],
-            )?;
-        }
-        fs.rows(k, store, spare.as_ref())?;
-        fs.inverse_columns(k, store)?;
-    }
-    fs.check_zero_tail(&a_refs, count)?;
+    transform_passes(&fs, plan, a, &b_limbs, &stores_a, spare.as_ref())?;
+    let a_refs: Vec<&RamStore> = stores_a.iter().collect();
     let mut out = match spare {
         Some(s) => s.into_words(),
         None => WordBuf::zeroed(plan.product_limbs),
@@ -231,26 +249,8 @@ where
         FileStore::create(&scratch_path(dir, "a2"), n)?,
     ];
     let spare = FileStore::create(&scratch_path(dir, "b"), n.max(plan.product_limbs))?;
+    transform_passes(&fs, plan, a, b, &stores_a, Some(&spare))?;
     let a_refs: Vec<&FileStore> = stores_a.iter().collect();
-    fs.forward_columns(
-        &|f, o: &mut [u64]| a.fill_limbs(f, o),
-        la,
-        &[0, 1, 2],
-        &a_refs,
-    )?;
-    for (k, store) in stores_a.iter().enumerate() {
-        if !plan.square {
-            fs.forward_columns(&|f, o: &mut [u64]| b.fill_limbs(f, o), lb, &[k], &[&spare])?;
-        }
-        fs.rows(k, store, (!plan.square).then_some(&spare))?;
-        fs.inverse_columns(k, store)?;
-    }
-    let mut first = count;
-    while first < n {
-        let w = window.min(n - first);
-        fs.check_zero_tail_range(&a_refs, first, w)?;
-        first += w;
-    }
     let failure = std::sync::Mutex::new(None);
     let mut digits = vec![0u64; window];
     let mut carry = [0u64; 3];

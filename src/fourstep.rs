@@ -307,7 +307,7 @@ impl FourStep {
     }
 
     /// [`FourStep::check_zero_tail`] for coefficients `first..first + len`.
-    pub fn check_zero_tail_range<S: Store>(
+    fn check_zero_tail_range<S: Store>(
         &self,
         stores: &[&S],
         first: usize,

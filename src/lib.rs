@@ -28,6 +28,7 @@ pub mod storage;
 #[cfg(test)]
 pub(crate) mod test_oracles;
 pub use engine::multiply;
+pub mod check;
 pub mod demo;
 pub mod job;
 pub mod residue;

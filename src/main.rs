@@ -144,6 +144,24 @@ enum Command {
         #[arg(long)]
         json: bool,
     },
+    /// Check C = A x B from the files alone, by residues modulo 2^61 - 1.
+    #[command(
+        after_help = "Example:\n  vastmul check a.txt b.txt c.txt\nExit code 0 when the check passes, 6 when it fails."
+    )]
+    Check {
+        /// First factor.
+        a: PathBuf,
+        /// Second factor.
+        b: PathBuf,
+        /// The product to check.
+        c: PathBuf,
+        /// Format of all three files (default: detected for each).
+        #[arg(long, value_enum)]
+        in_format: Option<FormatArg>,
+        /// Worker threads (default: every core).
+        #[arg(long)]
+        threads: Option<usize>,
+    },
     /// Print the plan for a product without computing it.
     #[command(after_help = "Example:\n  vastmul plan a.txt b.txt --json")]
     Plan {
@@ -321,6 +339,20 @@ fn run(cli: Cli) -> Result<(), Error> {
             } else {
                 println!("{info}");
             }
+        }
+        Command::Check {
+            a,
+            b,
+            c,
+            in_format,
+            threads,
+        } => {
+            set_threads(threads)?;
+            let r = vastmul::check::check_files(&a, &b, &c, in_format.map(Into::into))?;
+            println!(
+                "check passed: residues modulo 2^61-1: {:#x} x {:#x} = {:#x}",
+                r.residues[0], r.residues[1], r.residues[2]
+            );
         }
         Command::Plan {
             a,

@@ -283,3 +283,28 @@ fn demo_runs_and_verifies() {
     );
     assert_eq!(o.status.code(), Some(4), "{}", stderr(&o));
 }
+
+#[test]
+fn check_passes_on_a_product_and_fails_on_a_changed_digit() {
+    let t = tempfile::tempdir().unwrap();
+    let d = t.path();
+    write(d, "a.txt", b"-123456789012345678901234567890\n");
+    write(d, "b.txt", b"98765432109876543210\n");
+    let o = vastmul(&["mul", "a.txt", "b.txt", "-o", "c.txt"], d);
+    assert!(o.status.success(), "{}", stderr(&o));
+    let o = vastmul(&["check", "a.txt", "b.txt", "c.txt"], d);
+    assert!(o.status.success(), "{}", stderr(&o));
+    let mut c = std::fs::read(d.join("c.txt")).unwrap();
+    let i = c.len() / 2;
+    c[i] = if c[i] == b'1' { b'2' } else { b'1' };
+    write(d, "bad.txt", &c);
+    let o = vastmul(&["check", "a.txt", "b.txt", "bad.txt"], d);
+    assert_eq!(o.status.code(), Some(6), "{}", stderr(&o));
+    // the sign is checked too
+    let positive = String::from_utf8(std::fs::read(d.join("c.txt")).unwrap())
+        .unwrap()
+        .replace('-', "");
+    write(d, "pos.txt", positive.as_bytes());
+    let o = vastmul(&["check", "a.txt", "b.txt", "pos.txt"], d);
+    assert_eq!(o.status.code(), Some(6), "{}", stderr(&o));
+}
