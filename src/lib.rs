@@ -1,8 +1,26 @@
 //! # vastmul
 //!
-//! Exact products of enormous integers stored in files.
+//! Exact products of enormous integers stored in files, in decimal or
+//! binary, under a memory budget, on all cores. The command line is the
+//! main interface (see README.md); this crate is its library half.
 //!
-//! (The user guide is completed in README.md; this crate doc is its library half.)
+//! Limbs are little-endian `u64`s in the operands' own radix: base 2^64
+//! ([`Radix::Binary`]) or base 10^19 ([`Radix::Decimal`]), so decimal
+//! operands are multiplied without any radix conversion:
+//!
+//! ```
+//! use vastmul::{multiply, Radix};
+//!
+//! // (10^19 - 1)^2 = 10^38 - 2 * 10^19 + 1, in base-10^19 limbs
+//! let nines = [9_999_999_999_999_999_999u64];
+//! assert_eq!(multiply(&nines, &nines, Radix::Decimal), vec![1, 9_999_999_999_999_999_998]);
+//!
+//! // (2^64 - 1)^2 = 2^128 - 2^65 + 1, in base-2^64 limbs
+//! assert_eq!(multiply(&[u64::MAX], &[u64::MAX], Radix::Binary), vec![1, u64::MAX - 1]);
+//! ```
+//!
+//! Files go through [`job::multiply_files`]; the plan for a product is a
+//! value from [`plan::plan`], carried out by [`engine::execute_to`].
 
 #![warn(missing_docs)]
 
