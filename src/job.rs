@@ -172,16 +172,21 @@ pub fn plan_files(
     plan::plan(&ops.request(threads, Force::Auto, memory.unwrap_or_else(default_budget)))
 }
 
+/// The directory an output file goes to.
+fn output_dir(output: &Path) -> PathBuf {
+    match output.parent() {
+        Some(p) if !p.as_os_str().is_empty() => p.to_path_buf(),
+        _ => PathBuf::from("."),
+    }
+}
+
 /// The directory scratch files go to: `--scratch`, else the output's
 /// directory (so the final rename stays on one file system). It must exist
 /// and have room for `needed` bytes.
 fn scratch_dir(opts: &MulOptions, needed: u64) -> Result<PathBuf> {
     let dir = match &opts.scratch {
         Some(d) => d.clone(),
-        None => match opts.output.parent() {
-            Some(p) if !p.as_os_str().is_empty() => p.to_path_buf(),
-            _ => PathBuf::from("."),
-        },
+        None => output_dir(&opts.output),
     };
     if !dir.is_dir() {
         return Err(Error::usage(
@@ -231,16 +236,37 @@ pub fn multiply_files(opts: &MulOptions) -> Result<MulReport> {
     let mut out = AtomicOutput::create(&opts.output, opts.force)?;
     let memory = opts.memory.unwrap_or_else(default_budget);
     let plan = plan::plan(&ops.request(opts.threads, opts.algorithm, memory))?;
-    let text_bytes = 20 * plan.product_limbs as u64;
+    // Room for the product beside its target, checked before any work.
+    let product_bytes = match out_format {
+        Format::Decimal => 19,
+        Format::Hex => 16,
+        Format::Limbs | Format::Container => 8,
+    } * plan.product_limbs as u64
+        + 128;
+    let out_dir = output_dir(&opts.output);
     let dir = if plan.scratch_bytes > 0 {
-        let same_fs = opts.scratch.is_none();
+        let same_dir = opts.scratch.is_none();
         scratch_dir(
             opts,
-            plan.scratch_bytes + if same_fs { text_bytes } else { 0 },
+            plan.scratch_bytes + if same_dir { product_bytes } else { 0 },
         )?
     } else {
-        PathBuf::from(".")
+        out_dir.clone()
     };
+    if plan.scratch_bytes == 0 || opts.scratch.is_some() {
+        let free = free_space(&out_dir)?;
+        if free < product_bytes {
+            return Err(Error::Resources {
+                what: format!(
+                    "{}: the product needs {}, available {}",
+                    out_dir.display(),
+                    show_size(product_bytes),
+                    show_size(free)
+                ),
+                fix: "free space there, or write the product (-o) to a disk with more room".into(),
+            });
+        }
+    }
     let open_seconds = started.elapsed().as_secs_f64();
 
     let compute = Instant::now();

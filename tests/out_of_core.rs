@@ -177,3 +177,83 @@ fn cli_out_of_core_matches_in_memory_and_checks_scratch() {
     assert_eq!(o.status.code(), Some(2));
     assert!(!String::from_utf8_lossy(&o.stderr).contains("panicked"));
 }
+
+/// A small tmpfs mounted for one test, unmounted when dropped.
+struct TinyDisk(std::path::PathBuf);
+
+impl TinyDisk {
+    fn mount(dir: &Path, size: &str) -> Option<TinyDisk> {
+        std::fs::create_dir_all(dir).ok()?;
+        let ok = std::process::Command::new("mount")
+            .args(["-t", "tmpfs", "-o", &format!("size={size}"), "tmpfs"])
+            .arg(dir)
+            .status()
+            .map(|s| s.success())
+            .unwrap_or(false);
+        ok.then(|| TinyDisk(dir.to_path_buf()))
+    }
+}
+
+impl Drop for TinyDisk {
+    fn drop(&mut self) {
+        let _ = std::process::Command::new("umount").arg(&self.0).status();
+    }
+}
+
+#[test]
+fn a_disk_too_small_is_refused_before_any_work() {
+    let t = tempfile::tempdir().unwrap();
+    let d = t.path();
+    let Some(disk) = TinyDisk::mount(&d.join("tiny"), "2m") else {
+        println!("skipped: cannot mount a tmpfs here (needs root and mount permission)");
+        return;
+    };
+    let bin = env!("CARGO_BIN_EXE_vastmul");
+    let run = |args: &[&str]| {
+        std::process::Command::new(bin)
+            .args(args)
+            .current_dir(d)
+            .output()
+            .unwrap()
+    };
+    assert!(
+        run(&["gen", "--digits", "3000000", "--seed", "9", "-o", "a.txt"])
+            .status
+            .success()
+    );
+    assert!(
+        run(&["gen", "--digits", "2000000", "--seed", "8", "-o", "b.txt"])
+            .status
+            .success()
+    );
+    // scratch on the tiny disk
+    let o = run(&[
+        "mul",
+        "a.txt",
+        "b.txt",
+        "-o",
+        "c.txt",
+        "--memory",
+        "24MiB",
+        "--scratch",
+        "tiny",
+    ]);
+    let err = String::from_utf8_lossy(&o.stderr);
+    assert_eq!(o.status.code(), Some(5), "{err}");
+    assert!(
+        err.contains("tiny") && err.contains("needed") && err.contains("available"),
+        "{err}"
+    );
+    assert!(!d.join("c.txt").exists());
+    // the product itself on the tiny disk
+    let o = run(&["mul", "a.txt", "a.txt", "-o", "tiny/c.txt"]);
+    let err = String::from_utf8_lossy(&o.stderr);
+    assert_eq!(o.status.code(), Some(5), "{err}");
+    assert!(err.contains("the product needs"), "{err}");
+    assert_eq!(
+        std::fs::read_dir(&disk.0).unwrap().count(),
+        0,
+        "nothing left on the tiny disk"
+    );
+    assert!(!err.contains("panicked"));
+}
