@@ -36,7 +36,7 @@ run() { # label, output, extra args...
   local label=$1 out=$2; shift 2
   local log="$dir/time-$label.log"
   rm -f "$out"
-  /usr/bin/time -v "$v" mul "$a" "$b" -o "$out" --threads "$threads" "$@" 2> "$log" >/dev/null || { cat "$log"; exit 1; }
+  /usr/bin/time -v "$v" mul "$a" "$b" -o "$out" --threads "$threads" --json "$@" 2> "$log" > "$dir/report-$label.json" || { cat "$log"; exit 1; }
   local wall rss
   wall=$(grep "Elapsed (wall clock)" "$log" | awk '{print $NF}')
   rss=$(grep "Maximum resident set size" "$log" | awk '{print $NF}')
@@ -64,6 +64,21 @@ echo "| run | wall (h:mm:ss) | peak RSS MiB | product BLAKE3 (prefix) |"
 echo "|---|---|---|---|"
 [ "${OOC_SKIP_RAM:-0}" = 1 ] || run in-memory "$dir/product-ram.txt"
 run "out-of-core-$budget" "$dir/product-ooc.txt" --memory "$budget" --scratch "$dir/scratch"
+echo
+echo "## Passes: planned bytes, measured time, achieved MB/s (read + write)"
+python3 - "$dir" "$dir"/report-*.json <<'PY'
+import json, sys
+for path in sys.argv[2:]:
+    r = json.load(open(path))
+    label = path.rsplit("report-", 1)[1][:-5]
+    planned = {p["name"]: p for p in r["plan"]["passes"]}
+    print(f"\n### {label}\n| pass | seconds | MB moved | MB/s |\n|---|---|---|---|")
+    for t in r["passes"]:
+        p = planned.get(t["name"])
+        moved = (p["read_bytes"] + p["write_bytes"]) / 1e6 if p else float("nan")
+        rate = moved / t["seconds"] if t["seconds"] > 0 else float("nan")
+        print(f"| {t['name']} | {t['seconds']:.2f} | {moved:.0f} | {rate:.0f} |")
+PY
 if [ "${OOC_SKIP_RAM:-0}" != 1 ]; then
   if cmp -s "$dir/product-ram.txt" "$dir/product-ooc.txt"; then echo; echo "products identical: yes"; else echo; echo "products identical: NO"; exit 1; fi
 fi

@@ -12,6 +12,35 @@ use crate::Result;
 use rayon::prelude::*;
 use std::path::Path;
 
+/// Wall time of one pass, named as in [`Plan::passes`].
+#[derive(Clone, Debug, serde::Serialize)]
+pub struct PassTime {
+    /// The pass, as the plan names it.
+    pub name: String,
+    /// Seconds it took.
+    pub seconds: f64,
+}
+
+/// Collects pass times as the passes run.
+#[derive(Default)]
+pub struct Timer {
+    /// The passes timed so far, in order.
+    pub passes: Vec<PassTime>,
+}
+
+impl Timer {
+    /// Runs `f` as the pass `name`, recording its wall time.
+    pub fn pass<T>(&mut self, name: impl Into<String>, f: impl FnOnce() -> Result<T>) -> Result<T> {
+        let start = std::time::Instant::now();
+        let r = f();
+        self.passes.push(PassTime {
+            name: name.into(),
+            seconds: start.elapsed().as_secs_f64(),
+        });
+        r
+    }
+}
+
 /// A source of limbs: `fill_limbs(first, out)` writes limbs
 /// `first..first + out.len()` into `out`, zeros past the operand's end.
 pub trait LimbSource: Sync {
@@ -70,7 +99,7 @@ where
             );
             out
         }
-        Algorithm::Ntt { shape } => ntt_product(plan, shape, a, b)?,
+        Algorithm::Ntt { shape } => ntt_product(plan, shape, a, b, &mut Timer::default())?,
         Algorithm::OutOfCore { .. } => {
             return Err(crate::Error::usage(
                 "an out-of-core plan needs a scratch directory",
@@ -95,6 +124,7 @@ fn transform_passes<S, A, B>(
     b: &B,
     stores_a: &[S; 3],
     spare: Option<&S>,
+    timer: &mut Timer,
 ) -> Result<()>
 where
     S: Store,
@@ -103,19 +133,27 @@ where
 {
     let (la, lb) = (plan.a_limbs, plan.b_limbs);
     let refs: Vec<&S> = stores_a.iter().collect();
-    fs.forward_columns(
-        &|f, o: &mut [u64]| a.fill_limbs(f, o),
-        la,
-        &[0, 1, 2],
-        &refs,
-    )?;
+    timer.pass("columns of A, three primes", || {
+        fs.forward_columns(
+            &|f, o: &mut [u64]| a.fill_limbs(f, o),
+            la,
+            &[0, 1, 2],
+            &refs,
+        )
+    })?;
     let b_store = if plan.square { None } else { spare };
     for (k, store) in stores_a.iter().enumerate() {
         if let Some(s) = b_store {
-            fs.forward_columns(&|f, o: &mut [u64]| b.fill_limbs(f, o), lb, &[k], &[s])?;
+            timer.pass(format!("columns of B, prime {k}"), || {
+                fs.forward_columns(&|f, o: &mut [u64]| b.fill_limbs(f, o), lb, &[k], &[s])
+            })?;
         }
-        fs.rows(k, store, b_store)?;
-        fs.inverse_columns(k, store)?;
+        timer.pass(format!("rows and pointwise product, prime {k}"), || {
+            fs.rows(k, store, b_store)
+        })?;
+        timer.pass(format!("inverse columns, prime {k}"), || {
+            fs.inverse_columns(k, store)
+        })?;
     }
     fs.check_zero_tail(&refs, la + lb - 1)
 }
@@ -123,7 +161,7 @@ where
 /// The NTT in RAM: [`transform_passes`] over RAM stores, then the CRT and
 /// carry pass write the limbs into the store B used (or a new buffer for a
 /// square).
-fn ntt_product<A, B>(plan: &Plan, shape: Shape, a: &A, b: &B) -> Result<WordBuf>
+fn ntt_product<A, B>(plan: &Plan, shape: Shape, a: &A, b: &B, timer: &mut Timer) -> Result<WordBuf>
 where
     A: LimbSource + ?Sized,
     B: LimbSource + ?Sized,
@@ -145,29 +183,32 @@ where
     } else {
         read_all(b, lb)
     };
-    transform_passes(&fs, plan, a, &b_limbs, &stores_a, spare.as_ref())?;
+    transform_passes(&fs, plan, a, &b_limbs, &stores_a, spare.as_ref(), timer)?;
     let a_refs: Vec<&RamStore> = stores_a.iter().collect();
     let mut out = match spare {
         Some(s) => s.into_words(),
         None => WordBuf::zeroed(plan.product_limbs),
     };
     out.truncate(plan.product_limbs);
-    let failure = std::sync::Mutex::new(None);
-    carry::propagate(
-        count,
-        |first, dst: &mut [U192]| {
-            let mut tmp = Default::default();
-            if let Err(e) = fs.coefficients(&a_refs, first, dst, &mut tmp) {
-                *failure.lock().unwrap() = Some(e);
-            }
-        },
-        plan.radix,
-        &mut out,
-    );
-    match failure.into_inner().unwrap() {
-        Some(e) => Err(e),
-        None => Ok(out),
-    }
+    timer.pass("CRT and carry", || {
+        let failure = std::sync::Mutex::new(None);
+        carry::propagate(
+            count,
+            |first, dst: &mut [U192]| {
+                let mut tmp = Default::default();
+                if let Err(e) = fs.coefficients(&a_refs, first, dst, &mut tmp) {
+                    *failure.lock().unwrap() = Some(e);
+                }
+            },
+            plan.radix,
+            &mut out,
+        );
+        match failure.into_inner().unwrap() {
+            Some(e) => Err(e),
+            None => Ok(()),
+        }
+    })?;
+    Ok(out)
 }
 
 /// A computed product: in RAM, or in a scratch file for an out-of-core plan.
@@ -205,11 +246,33 @@ where
     A: LimbSource + ?Sized,
     B: LimbSource + ?Sized,
 {
+    execute_timed(plan, a, b, scratch_dir, &mut Timer::default())
+}
+
+/// [`execute_to`], recording each pass's wall time in `timer`.
+pub fn execute_timed<A, B>(
+    plan: &Plan,
+    a: &A,
+    b: &B,
+    scratch_dir: &Path,
+    timer: &mut Timer,
+) -> Result<Product>
+where
+    A: LimbSource + ?Sized,
+    B: LimbSource + ?Sized,
+{
     match plan.algorithm {
         Algorithm::OutOfCore { shape, window } => {
-            ooc_product(plan, shape, window, a, b, scratch_dir)
+            ooc_product(plan, shape, window, a, b, scratch_dir, timer)
         }
-        _ => execute(plan, a, b).map(Product::Ram),
+        Algorithm::Ntt { shape } => ntt_product(plan, shape, a, b, timer).map(|mut w| {
+            let len = w.iter().rposition(|&x| x != 0).map_or(0, |i| i + 1);
+            w.truncate(len);
+            Product::Ram(w)
+        }),
+        _ => timer
+            .pass("schoolbook convolution and carry", || execute(plan, a, b))
+            .map(Product::Ram),
     }
 }
 
@@ -234,6 +297,7 @@ fn ooc_product<A, B>(
     a: &A,
     b: &B,
     dir: &Path,
+    timer: &mut Timer,
 ) -> Result<Product>
 where
     A: LimbSource + ?Sized,
@@ -249,37 +313,37 @@ where
         FileStore::create(&scratch_path(dir, "a2"), n)?,
     ];
     let spare = FileStore::create(&scratch_path(dir, "b"), n.max(plan.product_limbs))?;
-    transform_passes(&fs, plan, a, b, &stores_a, Some(&spare))?;
+    transform_passes(&fs, plan, a, b, &stores_a, Some(&spare), timer)?;
     let a_refs: Vec<&FileStore> = stores_a.iter().collect();
-    let failure = std::sync::Mutex::new(None);
-    let mut digits = vec![0u64; window];
-    let mut carry = [0u64; 3];
-    let mut first = 0;
-    while first < count {
-        let w = window.min(count - first);
-        carry = carry::propagate_block(
-            |f, dst: &mut [U192]| {
-                let mut tmp = Default::default();
-                if let Err(e) = fs.coefficients(&a_refs, first + f, dst, &mut tmp) {
-                    *failure.lock().unwrap() = Some(e);
-                }
-            },
-            plan.radix,
-            carry,
-            &mut digits[..w],
-        );
-        if let Some(e) = failure.lock().unwrap().take() {
-            return Err(e);
+    let len = timer.pass("CRT and carry", || {
+        let failure = std::sync::Mutex::new(None);
+        let mut digits = vec![0u64; window];
+        let mut carry = [0u64; 3];
+        let mut first = 0;
+        while first < count {
+            let w = window.min(count - first);
+            carry = carry::propagate_block(
+                |f, dst: &mut [U192]| {
+                    let mut tmp = Default::default();
+                    if let Err(e) = fs.coefficients(&a_refs, first + f, dst, &mut tmp) {
+                        *failure.lock().unwrap() = Some(e);
+                    }
+                },
+                plan.radix,
+                carry,
+                &mut digits[..w],
+            );
+            if let Some(e) = failure.lock().unwrap().take() {
+                return Err(e);
+            }
+            spare.write(first, &digits[..w])?;
+            first += w;
         }
-        spare.write(first, &digits[..w])?;
-        first += w;
-    }
-    let top = carry::carry_limbs(carry, plan.radix);
-    spare.write(count, &top)?;
-    Ok(Product::Disk {
-        store: spare,
-        len: count + top.len(),
-    })
+        let top = carry::carry_limbs(carry, plan.radix);
+        spare.write(count, &top)?;
+        Ok(count + top.len())
+    })?;
+    Ok(Product::Disk { store: spare, len })
 }
 
 fn trimmed(x: &[u64]) -> &[u64] {

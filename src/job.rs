@@ -1,8 +1,8 @@
 //! The `mul` job end to end: open and validate the operands, plan, compute,
 //! and write the product atomically in the requested format.
 
-use crate::engine::Product;
 use crate::engine::{self, LimbSource};
+use crate::engine::{PassTime, Product, Timer};
 use crate::format::{
     format_radix_compatible, write_operand_file, write_text_file_from, Format, Operand,
 };
@@ -57,6 +57,8 @@ pub struct MulReport {
     pub write_seconds: f64,
     /// Limbs of the product (no leading zeros).
     pub product_limbs: usize,
+    /// Wall time of each pass, named as in the plan's passes.
+    pub passes: Vec<PassTime>,
 }
 
 impl LimbSource for Operand {
@@ -270,12 +272,13 @@ pub fn multiply_files(opts: &MulOptions) -> Result<MulReport> {
     let open_seconds = started.elapsed().as_secs_f64();
 
     let compute = Instant::now();
+    let mut timer = Timer::default();
     let product = if plan.scratch_bytes > 0 {
         a.expect_scattered_reads();
         b.expect_scattered_reads();
-        engine::execute_to(&plan, &Released(a), &Released(b), &dir)?
+        engine::execute_timed(&plan, &Released(a), &Released(b), &dir, &mut timer)?
     } else {
-        engine::execute_to(&plan, a, b, &dir)?
+        engine::execute_timed(&plan, a, b, &dir, &mut timer)?
     };
     let compute_seconds = compute.elapsed().as_secs_f64();
 
@@ -298,6 +301,10 @@ pub fn multiply_files(opts: &MulOptions) -> Result<MulReport> {
     }
     .map_err(|e| Error::io(&target, e))?;
     out.commit()?;
+    timer.passes.push(PassTime {
+        name: "write the product".into(),
+        seconds: write.elapsed().as_secs_f64(),
+    });
     Ok(MulReport {
         plan,
         out_format,
@@ -305,5 +312,6 @@ pub fn multiply_files(opts: &MulOptions) -> Result<MulReport> {
         compute_seconds,
         write_seconds: write.elapsed().as_secs_f64(),
         product_limbs: product.len(),
+        passes: timer.passes,
     })
 }
