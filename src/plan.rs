@@ -264,16 +264,15 @@ pub fn plan(req: &Request) -> Result<Plan> {
     if in_ram <= req.memory {
         plan.algorithm = Algorithm::Ntt { shape };
         plan.ram_bytes = in_ram;
-        plan.passes = ntt_passes(req, shape, 0);
+        plan.passes = ntt_passes(req, shape);
         return Ok(plan);
     }
     plan_out_of_core(req, plan, coefficients)
 }
 
-/// The passes of the NTT path and the bytes each moves; `scratch` is the
-/// byte count of what goes through scratch files (0 in RAM, then the
-/// figures count RAM traffic).
-fn ntt_passes(req: &Request, shape: Shape, _scratch: u64) -> Vec<Pass> {
+/// The passes of the NTT path and the bytes each moves (through scratch
+/// files out of core, through RAM otherwise).
+fn ntt_passes(req: &Request, shape: Shape) -> Vec<Pass> {
     let n8 = 8 * shape.len() as u64;
     let p8 = 8 * (req.a_limbs + req.b_limbs) as u64;
     let mut passes = vec![Pass {
@@ -304,6 +303,11 @@ fn ntt_passes(req: &Request, shape: Shape, _scratch: u64) -> Vec<Pass> {
         name: "CRT and carry".into(),
         read_bytes: 3 * 8 * (req.a_limbs + req.b_limbs - 1) as u64,
         write_bytes: p8,
+    });
+    passes.push(Pass {
+        name: "write the product".into(),
+        read_bytes: p8,
+        write_bytes: TEXT_BYTES_PER_LIMB * (req.a_limbs + req.b_limbs) as u64,
     });
     passes
 }
@@ -359,12 +363,7 @@ fn plan_out_of_core(req: &Request, mut plan: Plan, coefficients: usize) -> Resul
     plan.algorithm = Algorithm::OutOfCore { shape, window };
     plan.ram_bytes = need;
     plan.scratch_bytes = 8 * (PRIME_COUNT as u64 * n_words + spare_words);
-    plan.passes = ntt_passes(req, shape, plan.scratch_bytes);
-    plan.passes.push(Pass {
-        name: "write the product".into(),
-        read_bytes: 8 * product_limbs as u64,
-        write_bytes: TEXT_BYTES_PER_LIMB * product_limbs as u64,
-    });
+    plan.passes = ntt_passes(req, shape);
     Ok(plan)
 }
 
