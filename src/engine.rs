@@ -80,7 +80,7 @@ where
     B: LimbSource + ?Sized,
 {
     let (la, lb) = (plan.a_limbs, plan.b_limbs);
-    let mut out = match plan.algorithm {
+    let out = match plan.algorithm {
         Algorithm::Zero => WordBuf::zeroed(0),
         Algorithm::Schoolbook => {
             let av = read_all(a, la);
@@ -107,9 +107,14 @@ where
             ))
         }
     };
-    let len = out.iter().rposition(|&w| w != 0).map_or(0, |i| i + 1);
-    out.truncate(len);
-    Ok(out)
+    Ok(trim(out))
+}
+
+/// The buffer without its most significant zero limbs.
+fn trim(mut w: WordBuf) -> WordBuf {
+    let len = w.iter().rposition(|&x| x != 0).map_or(0, |i| i + 1);
+    w.truncate(len);
+    w
 }
 
 /// The transform passes of both NTT paths: all three primes' column
@@ -265,11 +270,9 @@ where
         Algorithm::OutOfCore { shape, window } => {
             ooc_product(plan, shape, window, a, b, scratch_dir, timer)
         }
-        Algorithm::Ntt { shape } => ntt_product(plan, shape, a, b, timer).map(|mut w| {
-            let len = w.iter().rposition(|&x| x != 0).map_or(0, |i| i + 1);
-            w.truncate(len);
-            Product::Ram(w)
-        }),
+        Algorithm::Ntt { shape } => {
+            ntt_product(plan, shape, a, b, timer).map(|w| Product::Ram(trim(w)))
+        }
         _ => timer
             .pass("schoolbook convolution and carry", || execute(plan, a, b))
             .map(Product::Ram),

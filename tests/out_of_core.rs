@@ -98,28 +98,33 @@ fn budget_below_the_smallest_plan_names_the_minimum() {
     assert_eq!(e.exit_code(), vastmul::error::exit::RESOURCES);
 }
 
+/// Runs the binary in `dir`.
+fn run_in(dir: &Path, args: &[&str]) -> std::process::Output {
+    std::process::Command::new(env!("CARGO_BIN_EXE_vastmul"))
+        .args(args)
+        .current_dir(dir)
+        .output()
+        .unwrap()
+}
+
+/// Generates `a.txt` (3*10^6 digits) and `b.txt` (2*10^6 digits) in `dir`:
+/// a pair whose in-memory plan needs more than 24 MiB.
+fn write_two_operands(dir: &Path) {
+    for (digits, seed, name) in [("3000000", "9", "a.txt"), ("2000000", "8", "b.txt")] {
+        let o = run_in(
+            dir,
+            &["gen", "--digits", digits, "--seed", seed, "-o", name],
+        );
+        assert!(o.status.success(), "{}", String::from_utf8_lossy(&o.stderr));
+    }
+}
+
 #[test]
 fn cli_out_of_core_matches_in_memory_and_checks_scratch() {
     let t = tempfile::tempdir().unwrap();
     let d = t.path();
-    let bin = env!("CARGO_BIN_EXE_vastmul");
-    let run = |args: &[&str]| {
-        std::process::Command::new(bin)
-            .args(args)
-            .current_dir(d)
-            .output()
-            .unwrap()
-    };
-    assert!(
-        run(&["gen", "--digits", "3000000", "--seed", "9", "-o", "a.txt"])
-            .status
-            .success()
-    );
-    assert!(
-        run(&["gen", "--digits", "2000000", "--seed", "8", "-o", "b.txt"])
-            .status
-            .success()
-    );
+    let run = |args: &[&str]| run_in(d, args);
+    write_two_operands(d);
     let o = run(&["mul", "a.txt", "b.txt", "-o", "ram.txt"]);
     assert!(o.status.success(), "{}", String::from_utf8_lossy(&o.stderr));
     std::fs::create_dir(d.join("scr")).unwrap();
@@ -208,24 +213,8 @@ fn a_disk_too_small_is_refused_before_any_work() {
         println!("skipped: cannot mount a tmpfs here (needs root and mount permission)");
         return;
     };
-    let bin = env!("CARGO_BIN_EXE_vastmul");
-    let run = |args: &[&str]| {
-        std::process::Command::new(bin)
-            .args(args)
-            .current_dir(d)
-            .output()
-            .unwrap()
-    };
-    assert!(
-        run(&["gen", "--digits", "3000000", "--seed", "9", "-o", "a.txt"])
-            .status
-            .success()
-    );
-    assert!(
-        run(&["gen", "--digits", "2000000", "--seed", "8", "-o", "b.txt"])
-            .status
-            .success()
-    );
+    let run = |args: &[&str]| run_in(d, args);
+    write_two_operands(d);
     // scratch on the tiny disk
     let o = run(&[
         "mul",
