@@ -3,10 +3,12 @@
 
 use crate::carry::{self, U192};
 use crate::fourstep::{FourStep, Shape};
+use crate::pieces;
 use crate::plan::{self, Algorithm, Force, Plan, Request};
 use crate::radix::Radix;
 use crate::schoolbook;
 use crate::scratch::FileStore;
+pub use crate::storage::LimbSource;
 use crate::storage::{RamStore, Store, WordBuf};
 use crate::Result;
 use rayon::prelude::*;
@@ -41,35 +43,19 @@ impl Timer {
     }
 }
 
-/// A source of limbs: `fill_limbs(first, out)` writes limbs
-/// `first..first + out.len()` into `out`, zeros past the operand's end.
-pub trait LimbSource: Sync {
-    /// Fills `out` with limbs starting at `first`.
-    fn fill_limbs(&self, first: usize, out: &mut [u64]);
-}
-
-impl LimbSource for [u64] {
-    fn fill_limbs(&self, first: usize, out: &mut [u64]) {
-        let have = self.len().saturating_sub(first).min(out.len());
-        out[..have].copy_from_slice(&self[first..first + have]);
-        out[have..].fill(0);
-    }
-}
-
-impl LimbSource for Vec<u64> {
-    fn fill_limbs(&self, first: usize, out: &mut [u64]) {
-        self.as_slice().fill_limbs(first, out)
-    }
-}
-
 /// All `len` limbs of `src`, read in parallel chunks.
-fn read_all<L: LimbSource + ?Sized>(src: &L, len: usize) -> Vec<u64> {
-    const CHUNK: usize = 1 << 16;
+pub(crate) fn read_all<L: LimbSource + ?Sized>(src: &L, len: usize) -> Vec<u64> {
     let mut v = vec![0u64; len];
-    v.par_chunks_mut(CHUNK)
-        .enumerate()
-        .for_each(|(i, chunk)| src.fill_limbs(i * CHUNK, chunk));
+    read_into(src, 0, &mut v);
     v
+}
+
+/// Limbs `first..first + out.len()` of `src` into `out`, in parallel chunks.
+pub(crate) fn read_into<L: LimbSource + ?Sized>(src: &L, first: usize, out: &mut [u64]) {
+    const CHUNK: usize = plan::READ_CHUNK_LIMBS;
+    out.par_chunks_mut(CHUNK)
+        .enumerate()
+        .for_each(|(i, chunk)| src.fill_limbs(first + i * CHUNK, chunk));
 }
 
 /// Carries out `plan` on `a` and `b` (ignored for a square) and returns the
@@ -100,9 +86,16 @@ where
             out
         }
         Algorithm::Ntt { shape } => ntt_product(plan, shape, a, b, &mut Timer::default())?,
-        Algorithm::OutOfCore { .. } => {
+        Algorithm::Pieces {
+            product_on_disk: false,
+            ..
+        } => match execute_to(plan, a, b, Path::new("."))? {
+            Product::Ram(w) => w,
+            Product::Disk { .. } => unreachable!("the plan keeps the product in RAM"),
+        },
+        Algorithm::OutOfCore { .. } | Algorithm::Pieces { .. } => {
             return Err(crate::Error::usage(
-                "an out-of-core plan needs a scratch directory",
+                "a plan with scratch files needs a scratch directory",
                 "call execute_to with one",
             ))
         }
@@ -122,9 +115,9 @@ fn trim(mut w: WordBuf) -> WordBuf {
 /// transform of `b` into `spare` (skipped for a square), the row pass with
 /// the pointwise product, and the inverse columns. Afterwards `stores_a`
 /// hold the residues of the convolution, checked to vanish past its end.
-fn transform_passes<S, A, B>(
+pub(crate) fn transform_passes<S, A, B>(
     fs: &FourStep,
-    plan: &Plan,
+    (la, lb, square): (usize, usize, bool),
     a: &A,
     b: &B,
     stores_a: &[S; 3],
@@ -136,21 +129,15 @@ where
     A: LimbSource + ?Sized,
     B: LimbSource + ?Sized,
 {
-    let (la, lb) = (plan.a_limbs, plan.b_limbs);
     let refs: Vec<&S> = stores_a.iter().collect();
     timer.pass("columns of A, three primes", || {
-        fs.forward_columns(
-            &|f, o: &mut [u64]| a.fill_limbs(f, o),
-            la,
-            &[0, 1, 2],
-            &refs,
-        )
+        fs.forward_columns(a, la, &[0, 1, 2], &refs)
     })?;
-    let b_store = if plan.square { None } else { spare };
+    let b_store = if square { None } else { spare };
     for (k, store) in stores_a.iter().enumerate() {
         if let Some(s) = b_store {
             timer.pass(format!("columns of B, prime {k}"), || {
-                fs.forward_columns(&|f, o: &mut [u64]| b.fill_limbs(f, o), lb, &[k], &[s])
+                fs.forward_columns(b, lb, &[k], &[s])
             })?;
         }
         timer.pass(format!("rows and pointwise product, prime {k}"), || {
@@ -188,7 +175,15 @@ where
     } else {
         read_all(b, lb)
     };
-    transform_passes(&fs, plan, a, &b_limbs, &stores_a, spare.as_ref(), timer)?;
+    transform_passes(
+        &fs,
+        (la, lb, plan.square),
+        a,
+        &b_limbs,
+        &stores_a,
+        spare.as_ref(),
+        timer,
+    )?;
     let a_refs: Vec<&RamStore> = stores_a.iter().collect();
     let mut out = match spare {
         Some(s) => s.into_words(),
@@ -273,6 +268,18 @@ where
         Algorithm::Ntt { shape } => {
             ntt_product(plan, shape, a, b, timer).map(|w| Product::Ram(trim(w)))
         }
+        Algorithm::Pieces { .. } => {
+            let name = plan.passes[0].name.clone();
+            let product = if plan.a_limbs >= plan.b_limbs {
+                timer.pass(name, || pieces::product(plan, a, b, scratch_dir))
+            } else {
+                timer.pass(name, || pieces::product(plan, b, a, scratch_dir))
+            }?;
+            Ok(match product {
+                Product::Ram(w) => Product::Ram(trim(w)),
+                disk => disk,
+            })
+        }
         _ => timer
             .pass("schoolbook convolution and carry", || execute(plan, a, b))
             .map(Product::Ram),
@@ -280,7 +287,7 @@ where
 }
 
 /// Distinct names for one run's scratch files.
-fn scratch_path(dir: &Path, what: &str) -> std::path::PathBuf {
+pub(crate) fn scratch_path(dir: &Path, what: &str) -> std::path::PathBuf {
     use std::sync::atomic::{AtomicU64, Ordering};
     static COUNTER: AtomicU64 = AtomicU64::new(0);
     let n = COUNTER.fetch_add(1, Ordering::Relaxed);
@@ -316,7 +323,15 @@ where
         FileStore::create(&scratch_path(dir, "a2"), n)?,
     ];
     let spare = FileStore::create(&scratch_path(dir, "b"), n.max(plan.product_limbs))?;
-    transform_passes(&fs, plan, a, b, &stores_a, Some(&spare), timer)?;
+    transform_passes(
+        &fs,
+        (la, lb, plan.square),
+        a,
+        b,
+        &stores_a,
+        Some(&spare),
+        timer,
+    )?;
     let a_refs: Vec<&FileStore> = stores_a.iter().collect();
     let len = timer.pass("CRT and carry", || {
         let failure = std::sync::Mutex::new(None);

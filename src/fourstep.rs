@@ -28,7 +28,7 @@ use crate::arith::Modulus;
 use crate::carry::U192;
 use crate::crt::Crt;
 use crate::ntt::{self, bit_reverse, Twiddles};
-use crate::storage::Store;
+use crate::storage::{LimbSource, Store};
 use crate::{Error, Result};
 use rayon::prelude::*;
 use serde::{Deserialize, Serialize};
@@ -129,6 +129,24 @@ fn twiddle(row: &mut [u64], tw: &[u64], m: &Modulus) {
     }
 }
 
+/// Columns read ahead at a time in the column passes, per row: a stretch of
+/// each row that many column blocks share (32 KiB of scratch words, 76 KiB
+/// of decimal text), so one hint per row serves all of them.
+const READ_AHEAD_COLUMNS: usize = 4096;
+
+/// The columns to read ahead when the column pass reaches `block`: at the
+/// first block of each read-ahead stretch, that stretch and the next, so
+/// that the disk reads the next while this one is transformed (hints for
+/// pages already cached cost little). `None` between stretches.
+fn read_ahead_span(block: usize, lanes: usize, cols: usize) -> Option<std::ops::Range<usize>> {
+    let c0 = block * lanes;
+    let stretch = READ_AHEAD_COLUMNS.min(cols);
+    if c0 % stretch != 0 {
+        return None;
+    }
+    Some(c0..(c0 + 2 * stretch).min(cols))
+}
+
 /// Per-thread buffers of the row pass.
 struct RowBuffers {
     a: Vec<u64>,
@@ -163,10 +181,9 @@ impl FourStep {
         self.shape
     }
 
-    /// Column pass: reads limbs `0..len` through `limbs(first, out)` (which
-    /// fills `out` with limbs `first..first + out.len()`, zeros past the end)
-    /// and leaves the column transforms modulo prime `primes[j]` in
-    /// `stores[j]`. Reading several primes at once reads the input once.
+    /// Column pass: reads limbs `0..len` of `limbs` and leaves the column
+    /// transforms modulo prime `primes[j]` in `stores[j]`. Reading several
+    /// primes at once reads the input once.
     pub fn forward_columns<S, L>(
         &self,
         limbs: &L,
@@ -176,7 +193,7 @@ impl FourStep {
     ) -> Result<()>
     where
         S: Store,
-        L: Fn(usize, &mut [u64]) + Sync,
+        L: LimbSource + ?Sized,
     {
         let Shape { rows, cols, lanes } = self.shape;
         (0..cols / lanes).into_par_iter().try_for_each_init(
@@ -190,8 +207,13 @@ impl FourStep {
                 } else {
                     0
                 };
+                if let Some(span) = read_ahead_span(block, lanes, cols) {
+                    for n1 in 0..live_rows {
+                        limbs.prefetch_limbs(cols * n1 + span.start, span.len());
+                    }
+                }
                 for (n1, seg) in raw.chunks_exact_mut(lanes).enumerate().take(live_rows) {
-                    limbs(cols * n1 + c0, seg);
+                    limbs.fill_limbs(cols * n1 + c0, seg);
                 }
                 raw[live_rows * lanes..].fill(0);
                 for (&k, store) in primes.iter().zip(stores) {
@@ -225,6 +247,13 @@ impl FourStep {
             },
             |buf, i| {
                 let start = i * cols;
+                // The next row is most likely this thread's next task.
+                if i + 1 < rows {
+                    a.prefetch(start + cols, cols);
+                    if let Some(b) = b {
+                        b.prefetch(start + cols, cols);
+                    }
+                }
                 a.read(start, &mut buf.a)?;
                 powers_mont(&mut buf.tw, t.row_step_fwd[i], m);
                 twiddle(&mut buf.a, &buf.tw, m);
@@ -261,6 +290,11 @@ impl FourStep {
             || vec![0u64; rows * lanes],
             |buf, block| {
                 let c0 = block * lanes;
+                if let Some(span) = read_ahead_span(block, lanes, cols) {
+                    for n1 in 0..rows {
+                        store.prefetch(cols * n1 + span.start, span.len());
+                    }
+                }
                 for (n1, seg) in buf.chunks_exact_mut(lanes).enumerate() {
                     store.read(cols * n1 + c0, seg)?;
                 }

@@ -76,6 +76,10 @@ impl LimbSource for Released<'_> {
         self.0.read_limbs(first, out);
         self.0.release_limbs(first, out.len());
     }
+
+    fn prefetch_limbs(&self, first: usize, n: usize) {
+        self.0.prefetch_limbs(first, n);
+    }
 }
 
 /// True when both files are the same file (same device and inode).
@@ -273,7 +277,7 @@ pub fn multiply_files(opts: &MulOptions) -> Result<MulReport> {
 
     let compute = Instant::now();
     let mut timer = Timer::default();
-    let product = if plan.scratch_bytes > 0 {
+    let product = if plan.release_inputs {
         a.expect_scattered_reads();
         b.expect_scattered_reads();
         engine::execute_timed(&plan, &Released(a), &Released(b), &dir, &mut timer)?

@@ -40,6 +40,7 @@ pub mod crt;
 pub mod engine;
 pub mod fourstep;
 pub mod ntt;
+pub mod pieces;
 pub mod plan;
 pub mod schoolbook;
 pub mod storage;

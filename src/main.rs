@@ -51,6 +51,7 @@ enum AlgorithmArg {
     Auto,
     Schoolbook,
     Ntt,
+    Pieces,
 }
 
 #[derive(Subcommand)]
@@ -287,6 +288,7 @@ fn run(cli: Cli) -> Result<(), Error> {
                     AlgorithmArg::Auto => Force::Auto,
                     AlgorithmArg::Schoolbook => Force::Schoolbook,
                     AlgorithmArg::Ntt => Force::Ntt,
+                    AlgorithmArg::Pieces => Force::Pieces,
                 },
                 memory,
                 scratch,

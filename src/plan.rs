@@ -57,6 +57,22 @@ pub enum Algorithm {
         /// Limbs per carry/output window.
         window: usize,
     },
+    /// A very unbalanced pair: the longer operand is cut into pieces of
+    /// `piece` limbs, each multiplied in RAM by the shorter one, and the
+    /// partial products are added on the way out, so that the cost grows
+    /// linearly with the longer operand.
+    Pieces {
+        /// Limbs of the longer operand per piece (the last may be shorter).
+        piece: usize,
+        /// How many pieces.
+        count: usize,
+        /// Each piece's transform, or `None` for schoolbook pieces.
+        shape: Option<Shape>,
+        /// Pieces computed at once (one per thread for small transforms).
+        batch: usize,
+        /// The product's limbs collect in a scratch file rather than RAM.
+        product_on_disk: bool,
+    },
 }
 
 /// One pass over the data, with the bytes it moves.
@@ -77,8 +93,10 @@ pub enum Force {
     Auto,
     /// Always schoolbook.
     Schoolbook,
-    /// Always the NTT.
+    /// Always one NTT over the whole product.
     Ntt,
+    /// NTT pieces whenever the pair allows them (unbalanced enough).
+    Pieces,
 }
 
 /// What the planner is asked.
@@ -152,6 +170,9 @@ pub struct Plan {
     pub scratch_bytes: u64,
     /// The passes over the data, in order, with the bytes each moves.
     pub passes: Vec<Pass>,
+    /// The input files are read through mappings whose pages are released
+    /// after each read, because keeping them would exceed the budget.
+    pub release_inputs: bool,
 }
 
 /// The four-step shape for a transform of at least `min_len` points.
@@ -212,6 +233,7 @@ pub fn plan(req: &Request) -> Result<Plan> {
         memory_budget: req.memory,
         scratch_bytes: 0,
         passes: Vec::new(),
+        release_inputs: false,
     };
     if la == 0 || lb == 0 {
         plan.product_limbs = 0;
@@ -220,13 +242,14 @@ pub fn plan(req: &Request) -> Result<Plan> {
     let coefficients = la + lb - 1;
     let short = la.min(lb);
     let shape = shape_for(coefficients);
-    let n = shape.len() as f64;
-    let ntt_cost = NTT_COST * n * n.log2() + NTT_FIXED_COST;
+    let ntt_cost = transform_cost(shape.len());
     let schoolbook_cost = SCHOOLBOOK_COST * la as f64 * lb as f64;
+    let pieces = best_pieces(req);
+    let pieces_cost = pieces.as_ref().map_or(f64::INFINITY, |p| p.1);
     let use_ntt = match req.force {
         Force::Schoolbook => false,
-        Force::Ntt => true,
-        Force::Auto => short > SCHOOLBOOK_ALWAYS && ntt_cost < schoolbook_cost,
+        Force::Ntt | Force::Pieces => true,
+        Force::Auto => short > SCHOOLBOOK_ALWAYS && ntt_cost.min(pieces_cost) < schoolbook_cost,
     };
     let limb_bytes = 8 * product_limbs as u64;
     if !use_ntt {
@@ -237,7 +260,16 @@ pub fn plan(req: &Request) -> Result<Plan> {
             read_bytes: req.input_bytes,
             write_bytes: limb_bytes,
         }];
-        return check_budget(plan);
+        if plan.ram_bytes <= req.memory {
+            return Ok(plan);
+        }
+        // Too large for RAM in one go: schoolbook pieces of the longer
+        // operand keep the working set to one piece per thread.
+        let piece = SCHOOLBOOK_PIECE.max(short);
+        return pieces_plan(req, plan, piece, None);
+    }
+    if let (Force::Pieces, Some((plan_pieces, _))) = (req.force, &pieces) {
+        return Ok(plan_pieces.clone());
     }
     if shape.len() as u64 > MAX_TRANSFORM_LEN {
         return Err(Error::Resources {
@@ -261,13 +293,175 @@ pub fn plan(req: &Request) -> Result<Plan> {
     let threads = req.threads as u64;
     let in_ram =
         plan.ram_bytes + store_bytes + product_store + b_decoded + threads * per_thread_ram(shape);
-    if in_ram <= req.memory {
+    let single_fits = in_ram <= req.memory;
+    match pieces {
+        // Pieces win when they are cheaper, or when the single transform
+        // would have to go out of core and the pieces fit in RAM.
+        Some((p, cost)) if req.force != Force::Ntt && (!single_fits || cost < ntt_cost) => {
+            return Ok(p)
+        }
+        _ => {}
+    }
+    if single_fits {
         plan.algorithm = Algorithm::Ntt { shape };
         plan.ram_bytes = in_ram;
         plan.passes = ntt_passes(req, shape);
         return Ok(plan);
     }
     plan_out_of_core(req, plan, coefficients)
+}
+
+/// Modelled cost of one convolution with a transform of `n` points.
+fn transform_cost(n: usize) -> f64 {
+    let n = n as f64;
+    NTT_COST * n * n.log2() + NTT_FIXED_COST
+}
+
+/// Limbs of the longer operand per schoolbook piece: the working set of a
+/// piece (192-bit coefficients) stays a few MiB per thread.
+const SCHOOLBOOK_PIECE: usize = 1 << 16;
+
+/// Pieces whose transform is at most this long run one per thread, each
+/// transform on one core; longer ones run one at a time on all cores.
+const PIECE_PARALLEL_MAX_LEN: usize = 1 << 18;
+
+/// Modelled cost of starting one piece (its passes' scheduling), in the
+/// units of [`NTT_COST`]; the tables are built once for all pieces.
+const PIECE_FIXED_COST: f64 = 10_000.0;
+
+/// The cheapest plan of NTT pieces that fits the budget, with its modelled
+/// cost; `None` when the pair is too balanced for pieces (fewer than two)
+/// or none fits.
+fn best_pieces(req: &Request) -> Option<(Plan, f64)> {
+    let (long, short) = (req.a_limbs.max(req.b_limbs), req.a_limbs.min(req.b_limbs));
+    if req.square || short <= SCHOOLBOOK_ALWAYS {
+        return None;
+    }
+    let single = shape_for(long + short - 1).len();
+    let mut best: Option<(Plan, f64)> = None;
+    // Each piece's transform holds at least twice the short operand, so a
+    // piece is at least as long as the short operand.
+    let mut t = (2 * short).next_power_of_two();
+    while t < single && t as u64 <= MAX_TRANSFORM_LEN {
+        let piece = t - short + 1;
+        let count = long.div_ceil(piece);
+        let cost =
+            count as f64 * (transform_cost(t) - NTT_FIXED_COST + PIECE_FIXED_COST) + NTT_FIXED_COST;
+        let base = Plan {
+            radix: req.radix,
+            a_limbs: req.a_limbs,
+            b_limbs: req.b_limbs,
+            product_limbs: long + short,
+            square: false,
+            threads: req.threads,
+            algorithm: Algorithm::Zero,
+            primes: Vec::new(),
+            ram_bytes: FIXED_RAM,
+            memory_budget: req.memory,
+            scratch_bytes: 0,
+            passes: Vec::new(),
+            release_inputs: false,
+        };
+        if count >= 2 && best.as_ref().map_or(true, |b| cost < b.1) {
+            if let Ok(p) = pieces_plan(req, base, piece, Some(shape_for(t))) {
+                best = Some((p, cost));
+            }
+        }
+        t *= 2;
+    }
+    best
+}
+
+/// The plan of pieces of `piece` limbs of the longer operand, each with a
+/// transform of `shape` (`None`: schoolbook), with inputs and product kept
+/// in RAM where the budget allows; refuses when even one piece at a time
+/// does not fit.
+fn pieces_plan(req: &Request, mut plan: Plan, piece: usize, shape: Option<Shape>) -> Result<Plan> {
+    let (long, short) = (req.a_limbs.max(req.b_limbs), req.a_limbs.min(req.b_limbs));
+    let count = long.div_ceil(piece);
+    let threads = req.threads as u64;
+    let batch = match shape {
+        Some(s) if s.len() > PIECE_PARALLEL_MAX_LEN => 1,
+        _ => req.threads.min(count),
+    };
+    let words = |x: usize| 8 * x as u64;
+    // Per piece in flight: its limbs, its product's limbs, and either the
+    // four transform stores or the schoolbook coefficients.
+    let per_piece = words(piece)
+        + words(piece + short)
+        + match shape {
+            Some(s) => words(4 * s.len() + 1),
+            None => 3 * words(piece + short),
+        };
+    let per_thread = shape.map_or(0, per_thread_ram);
+    // The short operand decoded once, and the overlap carried from one
+    // piece to the next.
+    let mut ram = FIXED_RAM + words(2 * short) + batch as u64 * per_piece + threads * per_thread;
+    // Inputs: kept mapped when they fit, else released after each read
+    // (then only each thread's chunk in flight is resident).
+    let released_inputs = threads * (READ_CHUNK_LIMBS as u64 * TEXT_BYTES_PER_LIMB + (128 << 10));
+    plan.release_inputs = ram + req.input_bytes + words(long + short) > req.memory;
+    ram += if plan.release_inputs {
+        released_inputs.min(req.input_bytes)
+    } else {
+        req.input_bytes
+    };
+    let product_on_disk = ram + words(long + short) > req.memory;
+    if !product_on_disk {
+        ram += words(long + short);
+    }
+    if ram > req.memory {
+        return Err(Error::Resources {
+            what: format!(
+                "a memory budget of {} is too small for this product: the smallest plan needs {}",
+                crate::size::show_size(req.memory),
+                crate::size::show_size(ram)
+            ),
+            fix: format!(
+                "pass --memory {}MiB or more, or fewer --threads",
+                ram.div_ceil(1 << 20)
+            ),
+        });
+    }
+    if shape.is_some() {
+        assert!(coefficient_bound_holds(short as u64, req.radix.max_limb()));
+        plan.primes = PRIMES.iter().map(|p| p.modulus.p).collect();
+    }
+    plan.algorithm = Algorithm::Pieces {
+        piece,
+        count,
+        shape,
+        batch,
+        product_on_disk,
+    };
+    plan.ram_bytes = ram;
+    plan.scratch_bytes = if product_on_disk {
+        words(long + short)
+    } else {
+        0
+    };
+    let p8 = words(long + short);
+    plan.passes = vec![
+        Pass {
+            name: pieces_pass_name(count, piece, short),
+            read_bytes: req.input_bytes,
+            write_bytes: p8,
+        },
+        Pass {
+            name: "write the product".into(),
+            read_bytes: p8,
+            write_bytes: TEXT_BYTES_PER_LIMB * (long + short) as u64,
+        },
+    ];
+    Ok(plan)
+}
+
+/// Limbs per parallel read of an operand (the chunk released after it).
+pub const READ_CHUNK_LIMBS: usize = 1 << 16;
+
+/// The name of the pass of a plan of pieces.
+pub fn pieces_pass_name(count: usize, piece: usize, short: usize) -> String {
+    format!("{count} pieces of {piece} x {short} limbs")
 }
 
 /// The passes of the NTT path and the bytes each moves (through scratch
@@ -361,28 +555,10 @@ fn plan_out_of_core(req: &Request, mut plan: Plan, coefficients: usize) -> Resul
     let n_words = shape.len() as u64;
     let spare_words = n_words.max(product_limbs as u64);
     plan.algorithm = Algorithm::OutOfCore { shape, window };
+    plan.release_inputs = true;
     plan.ram_bytes = need;
     plan.scratch_bytes = 8 * (PRIME_COUNT as u64 * n_words + spare_words);
     plan.passes = ntt_passes(req, shape);
-    Ok(plan)
-}
-
-/// Refuses a plan whose RAM exceeds the budget (paths without an
-/// out-of-core form).
-fn check_budget(plan: Plan) -> Result<Plan> {
-    if plan.ram_bytes > plan.memory_budget {
-        return Err(Error::Resources {
-            what: format!(
-                "this product needs {} of RAM, over the memory budget of {}",
-                crate::size::show_size(plan.ram_bytes),
-                crate::size::show_size(plan.memory_budget)
-            ),
-            fix: format!(
-                "pass --memory {}MiB or more",
-                plan.ram_bytes.div_ceil(1 << 20)
-            ),
-        });
-    }
     Ok(plan)
 }
 
@@ -470,6 +646,74 @@ mod tests {
                 }
             }
         }
+    }
+
+    /// Unbalanced pairs over a grid of budgets: plans of pieces fit their
+    /// budget, cover the long operand, hold each piece's product in its
+    /// transform, and keep the convolution exact.
+    #[test]
+    fn plans_of_pieces_fit_and_cover_the_product() {
+        let mb = 1u64 << 20;
+        let mut seen = 0;
+        for (long, short) in [
+            (100_000usize, 1_000usize),
+            (1_000_000, 40),
+            (1_000_000, 5_000),
+            (50_000_000, 300),
+            (600_000_000, 20_000),
+            (600_000_000, 3),
+        ] {
+            for budget in [8 * mb, 64 * mb, 2048 * mb, 1 << 40] {
+                for radix in [Radix::Binary, Radix::Decimal] {
+                    for swap in [false, true] {
+                        let (a, b) = if swap { (short, long) } else { (long, short) };
+                        let mut r = Request::in_memory(a, b, radix, false, 2, Force::Auto);
+                        r.memory = budget;
+                        r.input_bytes = 19 * (long + short) as u64;
+                        let p = match plan(&r) {
+                            Ok(p) => p,
+                            Err(e) => {
+                                assert!(budget <= 8 * mb, "{long}x{short} {budget}: {e}");
+                                continue;
+                            }
+                        };
+                        assert!(p.ram_bytes <= budget, "{long}x{short} {budget}: {p:?}");
+                        if let Algorithm::Pieces {
+                            piece,
+                            count,
+                            shape,
+                            batch,
+                            product_on_disk,
+                        } = p.algorithm
+                        {
+                            seen += 1;
+                            assert!(count >= 2 && batch >= 1);
+                            assert!(piece * count >= long && piece * (count - 1) < long);
+                            if let Some(s) = shape {
+                                assert!(s.len() >= piece + short - 1, "{p:?}");
+                                assert!(coefficient_bound_holds(short as u64, radix.max_limb()));
+                            }
+                            assert_eq!(product_on_disk, p.scratch_bytes > 0);
+                        }
+                    }
+                }
+            }
+        }
+        assert!(seen > 20, "the grid exercises pieces ({seen} plans)");
+    }
+
+    #[test]
+    fn long_by_short_pairs_are_cut_into_pieces() {
+        // 10^6 x 5000 limbs: pieces cost less than one 2^21-point transform.
+        let p = plan(&req(1_000_000, 5_000)).unwrap();
+        assert!(matches!(p.algorithm, Algorithm::Pieces { .. }), "{p:?}");
+        // Balanced pairs never are.
+        let p = plan(&req(1_000_000, 900_000)).unwrap();
+        assert!(matches!(p.algorithm, Algorithm::Ntt { .. }), "{p:?}");
+        // Forcing the NTT keeps one transform.
+        let mut r = req(1_000_000, 5_000);
+        r.force = Force::Ntt;
+        assert!(matches!(plan(&r).unwrap().algorithm, Algorithm::Ntt { .. }));
     }
 
     #[test]

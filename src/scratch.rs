@@ -125,6 +125,28 @@ impl Store for FileStore {
             .write_all_at(as_bytes(data), (start * 8) as u64)
             .map_err(|e| scratch_error(&self.path, e))
     }
+
+    fn prefetch(&self, start: usize, len: usize) {
+        let len = len.min(self.len.saturating_sub(start));
+        if len == 0 {
+            return;
+        }
+        #[cfg(target_os = "linux")]
+        {
+            use std::os::fd::AsRawFd;
+            // SAFETY: posix_fadvise only reads its integer arguments; the
+            // descriptor is valid while `self.file` is borrowed. A failed
+            // hint changes nothing, so its result is ignored.
+            unsafe {
+                libc::posix_fadvise(
+                    self.file.as_raw_fd(),
+                    (start * 8) as libc::off_t,
+                    (len * 8) as libc::off_t,
+                    libc::POSIX_FADV_WILLNEED,
+                );
+            }
+        }
+    }
 }
 
 /// Bytes available to an unprivileged user on the file system holding

@@ -24,6 +24,35 @@ pub trait Store: Sync {
 
     /// Copies `data` into words `start .. start + data.len()`.
     fn write(&self, start: usize, data: &[u64]) -> Result<()>;
+
+    /// A hint that words `start .. start + len` will be read soon; stores
+    /// on disk start reading them in the background. Never required.
+    fn prefetch(&self, _start: usize, _len: usize) {}
+}
+
+/// A source of limbs: `fill_limbs(first, out)` writes limbs
+/// `first..first + out.len()` into `out`, zeros past the operand's end.
+pub trait LimbSource: Sync {
+    /// Fills `out` with limbs starting at `first`.
+    fn fill_limbs(&self, first: usize, out: &mut [u64]);
+
+    /// A hint that limbs `first..first + n` will be read soon; sources on
+    /// disk start reading them in the background. Never required.
+    fn prefetch_limbs(&self, _first: usize, _n: usize) {}
+}
+
+impl LimbSource for [u64] {
+    fn fill_limbs(&self, first: usize, out: &mut [u64]) {
+        let have = self.len().saturating_sub(first).min(out.len());
+        out[..have].copy_from_slice(&self[first..first + have]);
+        out[have..].fill(0);
+    }
+}
+
+impl LimbSource for Vec<u64> {
+    fn fill_limbs(&self, first: usize, out: &mut [u64]) {
+        self.as_slice().fill_limbs(first, out)
+    }
 }
 
 /// An owned, zero-initialised array of words in an anonymous memory

@@ -77,7 +77,8 @@ fn squares_and_unbalanced_pairs_out_of_core() {
         let a = rng.limbs(200_000, radix);
         let sq = ooc_multiply(&a, &a, radix, 10 << 20, dir.path());
         assert_product(&sq, &a, &a, radix, "square");
-        let short = rng.limbs(3_000, radix);
+        // Unequal, but not enough for pieces (tests/pieces.rs has those).
+        let short = rng.limbs(150_000, radix);
         let c = ooc_multiply(&a, &short, radix, 10 << 20, dir.path());
         assert_product(&c, &a, &short, radix, "unbalanced");
         // all maximal limbs: carries ripple through every window

@@ -425,9 +425,35 @@ impl Operand {
     /// after each read so that the input's pages do not pile up in the
     /// process and count against its memory budget.
     pub fn release_limbs(&self, first: usize, n: usize) {
+        let (lo, hi) = self.limb_bytes(first, n);
+        if lo < hi {
+            // A fault maps the neighbouring cached pages too ("fault-around",
+            // 64 KiB by default), so release whole aligned 64 KiB spans.
+            const AROUND: usize = 64 << 10;
+            let lo = lo / AROUND * AROUND;
+            let hi = hi.div_ceil(AROUND) * AROUND;
+            let hi = hi.min(self.data.bytes().len());
+            release_bytes(&self.data, lo, hi - lo);
+        }
+    }
+
+    /// Starts reading the bytes behind limbs `first..first + n` into the
+    /// page cache in the background, without mapping them into this process
+    /// (so they do not count against its memory): read-ahead for the strided
+    /// reads of the out-of-core column passes.
+    pub fn prefetch_limbs(&self, first: usize, n: usize) {
+        let (lo, hi) = self.limb_bytes(first, n);
+        if let (Backing::Mapped(map), true) = (&self.data, lo < hi) {
+            let _ = map.advise_range(memmap2::Advice::WillNeed, lo, hi - lo);
+        }
+    }
+
+    /// The byte range of the file behind limbs `first..first + n` (clamped
+    /// to the digits or words).
+    fn limb_bytes(&self, first: usize, n: usize) -> (usize, usize) {
         // Limb i of text ends width*i bytes before the end of the digits; of
         // raw words it starts 8*i bytes after their start.
-        let (lo, hi) = match &self.layout {
+        match &self.layout {
             Layout::Words(w) => (w.start + 8 * first, (w.start + 8 * (first + n)).min(w.end)),
             Layout::Decimal(d) | Layout::Hex(d) => {
                 let width = if matches!(self.layout, Layout::Decimal(_)) {
@@ -440,15 +466,6 @@ impl Operand {
                     d.end.saturating_sub(width * first).max(d.start),
                 )
             }
-        };
-        if lo < hi {
-            // A fault maps the neighbouring cached pages too ("fault-around",
-            // 64 KiB by default), so release whole aligned 64 KiB spans.
-            const AROUND: usize = 64 << 10;
-            let lo = lo / AROUND * AROUND;
-            let hi = hi.div_ceil(AROUND) * AROUND;
-            let hi = hi.min(self.data.bytes().len());
-            release_bytes(&self.data, lo, hi - lo);
         }
     }
 
