@@ -13,6 +13,8 @@
 # Environment: OOC_DIR (data and scratch folder, default target/ooc),
 #   OOC_THREADS (default: all cores), OOC_SKIP_RAM=1 (out-of-core run only,
 #   for operands whose in-memory plan does not fit this machine).
+# Also samples the scratch file system's disk use during the out-of-core
+# run and checks its product with `vastmul check`.
 # Disk: two operands of DIGITS bytes, two products of 2*DIGITS bytes, and
 # scratch of about 4 * 8 * (next power of two above 2*DIGITS/19) bytes.
 set -euo pipefail
@@ -63,7 +65,24 @@ echo
 echo "| run | wall (h:mm:ss) | peak RSS MiB | product BLAKE3 (prefix) |"
 echo "|---|---|---|---|"
 [ "${OOC_SKIP_RAM:-0}" = 1 ] || run in-memory "$dir/product-ram.txt"
+# Disk use of the scratch file system, sampled every second during the
+# out-of-core run, against the plan's scratch figure.
+used() { df -B1 --output=used "$dir/scratch" | tail -1; }
+base=$(used)
+( peak=$base; while sleep 1; do u=$(used); [ "$u" -gt "$peak" ] && peak=$u; echo "$peak" > "$dir/disk-peak"; done ) &
+sampler=$!
 run "out-of-core-$budget" "$dir/product-ooc.txt" --memory "$budget" --scratch "$dir/scratch"
+kill "$sampler" 2>/dev/null || true
+peak=$(cat "$dir/disk-peak" 2>/dev/null || echo "$base")
+python3 - "$dir/plan.json" "$base" "$peak" <<'PY'
+import json, sys
+p = json.load(open(sys.argv[1]))
+base, peak = int(sys.argv[2]), int(sys.argv[3])
+prod = 19 * p['product_limbs']
+print(f"\n- disk: plan says {p['scratch_bytes'] / 2**20:.1f} MiB of scratch plus about "
+      f"{prod / 2**20:.1f} MiB of product text; the file system's use peaked "
+      f"{(peak - base) / 2**20:.1f} MiB above its level before the run (sampled every second)")
+PY
 echo
 echo "## Passes: planned bytes, measured time, achieved MB/s (read + write)"
 python3 - "$dir" "$dir"/report-*.json <<'PY'
@@ -79,6 +98,12 @@ for path in sys.argv[2:]:
         rate = moved / t["seconds"] if t["seconds"] > 0 else float("nan")
         print(f"| {t['name']} | {t['seconds']:.2f} | {moved:.0f} | {rate:.0f} |")
 PY
+echo
+echo "## Verification"
+t0=$(date +%s%N)
+if "$v" check "$a" "$b" "$dir/product-ooc.txt"; then ok=passed; else ok=FAILED; fi
+echo "- \`vastmul check\` (residues) on the out-of-core product: $ok in $(( ($(date +%s%N) - t0) / 1000000 )) ms"
+[ "$ok" = passed ] || exit 1
 if [ "${OOC_SKIP_RAM:-0}" != 1 ]; then
   if cmp -s "$dir/product-ram.txt" "$dir/product-ooc.txt"; then echo; echo "products identical: yes"; else echo; echo "products identical: NO"; exit 1; fi
 fi
