@@ -2,7 +2,7 @@
 //! sources, and the convenience entry points on limb slices.
 
 use crate::carry::{self, U192};
-use crate::fourstep::{FourStep, Shape};
+use crate::fourstep::{FourStep, NoLog, Shape};
 use crate::pieces;
 use crate::plan::{self, Algorithm, Force, Plan, Request};
 use crate::radix::Radix;
@@ -131,20 +131,20 @@ where
 {
     let refs: Vec<&S> = stores_a.iter().collect();
     timer.pass("columns of A, three primes", || {
-        fs.forward_columns(a, la, &[0, 1, 2], &refs)
+        fs.forward_columns(a, la, &[0, 1, 2], &refs, &[&NoLog, &NoLog, &NoLog])
     })?;
     let b_store = if square { None } else { spare };
     for (k, store) in stores_a.iter().enumerate() {
         if let Some(s) = b_store {
             timer.pass(format!("columns of B, prime {k}"), || {
-                fs.forward_columns(b, lb, &[k], &[s])
+                fs.forward_columns(b, lb, &[k], &[s], &[&NoLog])
             })?;
         }
         timer.pass(format!("rows and pointwise product, prime {k}"), || {
-            fs.rows(k, store, b_store)
+            fs.rows(k, store, b_store, store, &NoLog)
         })?;
         timer.pass(format!("inverse columns, prime {k}"), || {
-            fs.inverse_columns(k, store)
+            fs.inverse_columns(k, store, store, &NoLog)
         })?;
     }
     fs.check_zero_tail(&refs, la + lb - 1)

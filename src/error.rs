@@ -70,6 +70,14 @@ pub enum Error {
         /// What did not match.
         what: String,
     },
+    /// Stopped by SIGINT or SIGTERM at a block boundary, state saved.
+    #[error("{what}\n  to resume: {resume}")]
+    Interrupted {
+        /// Where the work stopped.
+        what: String,
+        /// How to resume it.
+        resume: String,
+    },
     /// An operating-system I/O error on a named file.
     #[error("{path}: {source}")]
     Io {
@@ -96,6 +104,7 @@ impl Error {
             Error::Usage { .. } => exit::USAGE,
             Error::Resources { .. } => exit::RESOURCES,
             Error::Verify { .. } => exit::VERIFY,
+            Error::Interrupted { .. } => exit::INTERRUPTED,
             Error::Io { .. } => exit::OUTPUT,
         }
     }

@@ -56,6 +56,37 @@ impl Shape {
     }
 }
 
+/// The checkpointing hook of a pass: which blocks an earlier run already
+/// completed (they are skipped), and where each newly completed block is
+/// reported, with the BLAKE3 of what it wrote. Blocks are column blocks in
+/// the column passes and rows in the row pass.
+pub trait BlockLog: Sync {
+    /// True when `block` is already done.
+    fn done(&self, _block: usize) -> bool {
+        false
+    }
+
+    /// Whether [`BlockLog::finished`] wants the block's hash.
+    fn wants_hash(&self) -> bool {
+        false
+    }
+
+    /// Called once `block`'s output is written.
+    fn finished(&self, _block: usize, _hash: Option<blake3::Hash>) -> Result<()> {
+        Ok(())
+    }
+}
+
+/// The log of a run that keeps no checkpoints.
+pub struct NoLog;
+
+impl BlockLog for NoLog {}
+
+/// The BLAKE3 of a buffer of words, when the log wants one.
+fn digest(log: &dyn BlockLog, words: &[u64]) -> Option<blake3::Hash> {
+    log.wants_hash().then(|| blake3::hash(crate::storage::words_as_bytes(words)))
+}
+
 /// Tables of one prime for one shape.
 struct PrimeTables {
     modulus: Modulus,
@@ -182,14 +213,16 @@ impl FourStep {
     }
 
     /// Column pass: reads limbs `0..len` of `limbs` and leaves the column
-    /// transforms modulo prime `primes[j]` in `stores[j]`. Reading several
-    /// primes at once reads the input once.
+    /// transforms modulo prime `primes[j]` in `stores[j]`, reporting each
+    /// column block to `logs[j]`. Reading several primes at once reads the
+    /// input once.
     pub fn forward_columns<S, L>(
         &self,
         limbs: &L,
         len: usize,
         primes: &[usize],
         stores: &[&S],
+        logs: &[&dyn BlockLog],
     ) -> Result<()>
     where
         S: Store,
@@ -199,6 +232,10 @@ impl FourStep {
         (0..cols / lanes).into_par_iter().try_for_each_init(
             || (vec![0u64; rows * lanes], vec![0u64; rows * lanes]),
             |(raw, buf), block| {
+                if logs.iter().all(|l| l.done(block)) {
+                    return Ok(());
+                }
+                crate::interrupt::check()?;
                 let c0 = block * lanes;
                 // Rows past the operand's end are zero; most transforms are
                 // zero-padded to twice the operand, so skip reading them.
@@ -216,7 +253,10 @@ impl FourStep {
                     limbs.fill_limbs(cols * n1 + c0, seg);
                 }
                 raw[live_rows * lanes..].fill(0);
-                for (&k, store) in primes.iter().zip(stores) {
+                for ((&k, store), log) in primes.iter().zip(stores).zip(logs) {
+                    if log.done(block) {
+                        continue;
+                    }
                     let t = &self.tables[k];
                     for (b, r) in buf.iter_mut().zip(raw.iter()) {
                         *b = t.modulus.reduce_lazy(*r);
@@ -225,6 +265,7 @@ impl FourStep {
                     for (n1, seg) in buf.chunks_exact(lanes).enumerate() {
                         store.write(cols * n1 + c0, seg)?;
                     }
+                    log.finished(block, digest(*log, buf))?;
                 }
                 Ok(())
             },
@@ -233,9 +274,18 @@ impl FourStep {
 
     /// Row pass for prime `k`: transforms the rows of both operands,
     /// multiplies them pointwise and inverse-transforms the product into
-    /// `a`. With `b` as `None` the operand is squared and its second
-    /// transform skipped.
-    pub fn rows<S: Store>(&self, k: usize, a: &S, b: Option<&S>) -> Result<()> {
+    /// `out` (which may be `a`: in RAM the pass runs in place; on disk it
+    /// writes elsewhere, so that a block interrupted halfway can be redone
+    /// from intact inputs). With `b` as `None` the operand is squared and
+    /// its second transform skipped. Each row is a block of `log`.
+    pub fn rows<S: Store>(
+        &self,
+        k: usize,
+        a: &S,
+        b: Option<&S>,
+        out: &S,
+        log: &dyn BlockLog,
+    ) -> Result<()> {
         let Shape { rows, cols, .. } = self.shape;
         let t = &self.tables[k];
         let m = &t.modulus;
@@ -246,6 +296,10 @@ impl FourStep {
                 tw: vec![0; cols],
             },
             |buf, i| {
+                if log.done(i) {
+                    return Ok(());
+                }
+                crate::interrupt::check()?;
                 let start = i * cols;
                 // The next row is most likely this thread's next task.
                 if i + 1 < rows {
@@ -276,19 +330,32 @@ impl FourStep {
                 ntt::inverse(&mut buf.a, &t.row, m);
                 powers_mont(&mut buf.tw, t.row_step_inv[i], m);
                 twiddle(&mut buf.a, &buf.tw, m);
-                a.write(start, &buf.a)
+                out.write(start, &buf.a)?;
+                log.finished(i, digest(log, &buf.a))
             },
         )
     }
 
-    /// Inverse column pass for prime `k`: afterwards `store` holds the
-    /// (scaled, lazily reduced) residues of the convolution in natural order.
-    pub fn inverse_columns<S: Store>(&self, k: usize, store: &S) -> Result<()> {
+    /// Inverse column pass for prime `k`: reads what the row pass left in
+    /// `src` and leaves the (scaled, lazily reduced) residues of the
+    /// convolution in natural order in `dst` (which may be `src`).
+    pub fn inverse_columns<S: Store>(
+        &self,
+        k: usize,
+        src: &S,
+        dst: &S,
+        log: &dyn BlockLog,
+    ) -> Result<()> {
         let Shape { rows, cols, lanes } = self.shape;
         let t = &self.tables[k];
+        let store = src;
         (0..cols / lanes).into_par_iter().try_for_each_init(
             || vec![0u64; rows * lanes],
             |buf, block| {
+                if log.done(block) {
+                    return Ok(());
+                }
+                crate::interrupt::check()?;
                 let c0 = block * lanes;
                 if let Some(span) = read_ahead_span(block, lanes, cols) {
                     for n1 in 0..rows {
@@ -300,11 +367,35 @@ impl FourStep {
                 }
                 ntt::inverse_lanes(buf, lanes, &t.col, &t.modulus);
                 for (n1, seg) in buf.chunks_exact(lanes).enumerate() {
-                    store.write(cols * n1 + c0, seg)?;
+                    dst.write(cols * n1 + c0, seg)?;
                 }
-                Ok(())
+                log.finished(block, digest(log, buf))
             },
         )
+    }
+
+    /// Column blocks of this shape.
+    pub fn column_blocks(&self) -> usize {
+        self.shape.cols / self.shape.lanes
+    }
+
+    /// The BLAKE3 of column block `block` of `store`, laid out as the
+    /// column passes hash it: for checking a journaled block.
+    pub fn column_block_hash<S: Store>(&self, store: &S, block: usize) -> Result<blake3::Hash> {
+        let Shape { rows, cols, lanes } = self.shape;
+        let mut buf = vec![0u64; rows * lanes];
+        for (n1, seg) in buf.chunks_exact_mut(lanes).enumerate() {
+            store.read(cols * n1 + block * lanes, seg)?;
+        }
+        Ok(blake3::hash(crate::storage::words_as_bytes(&buf)))
+    }
+
+    /// The BLAKE3 of row `row` of `store`, as the row pass hashes it.
+    pub fn row_hash<S: Store>(&self, store: &S, row: usize) -> Result<blake3::Hash> {
+        let cols = self.shape.cols;
+        let mut buf = vec![0u64; cols];
+        store.read(row * cols, &mut buf)?;
+        Ok(blake3::hash(crate::storage::words_as_bytes(&buf)))
     }
 
     /// The exact coefficients `first..first + out.len()` from the residue

@@ -21,6 +21,8 @@ pub struct FileStore {
     file: File,
     path: PathBuf,
     len: usize,
+    /// Kept when dropped: part of a run's resumable state.
+    keep: bool,
 }
 
 fn as_bytes(words: &[u64]) -> &[u8] {
@@ -48,9 +50,39 @@ impl FileStore {
             file,
             path: path.to_path_buf(),
             len,
+            keep: false,
         };
         preallocate(&store.file, (len * 8) as u64).map_err(|e| scratch_error(path, e))?;
         Ok(store)
+    }
+
+    /// Opens `path` as a store of `len` words that outlives this process:
+    /// an existing file of exactly that size is reused (its words are what
+    /// an earlier run left; the journal says which to trust), anything else
+    /// is replaced by a fresh preallocated file. Returns the store and
+    /// whether an existing file was reused. Never removed when dropped.
+    pub fn open_kept(path: &Path, len: usize) -> Result<(Self, bool)> {
+        let bytes = (len * 8) as u64;
+        if let Ok(meta) = std::fs::metadata(path) {
+            if meta.is_file() && meta.len() == bytes {
+                let file = OpenOptions::new()
+                    .read(true)
+                    .write(true)
+                    .open(path)
+                    .map_err(|e| scratch_error(path, e))?;
+                let store = FileStore {
+                    file,
+                    path: path.to_path_buf(),
+                    len,
+                    keep: true,
+                };
+                return Ok((store, true));
+            }
+            std::fs::remove_file(path).map_err(|e| scratch_error(path, e))?;
+        }
+        let mut store = FileStore::create(path, len)?;
+        store.keep = true;
+        Ok((store, false))
     }
 
     /// The scratch file's path.
@@ -61,7 +93,9 @@ impl FileStore {
 
 impl Drop for FileStore {
     fn drop(&mut self) {
-        let _ = std::fs::remove_file(&self.path);
+        if !self.keep {
+            let _ = std::fs::remove_file(&self.path);
+        }
     }
 }
 
@@ -123,6 +157,12 @@ impl Store for FileStore {
         debug_assert!(start + data.len() <= self.len);
         self.file
             .write_all_at(as_bytes(data), (start * 8) as u64)
+            .map_err(|e| scratch_error(&self.path, e))
+    }
+
+    fn sync(&self) -> Result<()> {
+        self.file
+            .sync_data()
             .map_err(|e| scratch_error(&self.path, e))
     }
 

@@ -28,6 +28,35 @@ pub trait Store: Sync {
     /// A hint that words `start .. start + len` will be read soon; stores
     /// on disk start reading them in the background. Never required.
     fn prefetch(&self, _start: usize, _len: usize) {}
+
+    /// Makes the words written so far durable (a no-op in RAM). A failure
+    /// is final: what was written since the last successful sync may be
+    /// lost, and the run must stop rather than go on as if it were kept.
+    fn sync(&self) -> Result<()> {
+        Ok(())
+    }
+}
+
+impl<S: Store + ?Sized> Store for Box<S> {
+    fn len(&self) -> usize {
+        (**self).len()
+    }
+
+    fn read(&self, start: usize, out: &mut [u64]) -> Result<()> {
+        (**self).read(start, out)
+    }
+
+    fn write(&self, start: usize, data: &[u64]) -> Result<()> {
+        (**self).write(start, data)
+    }
+
+    fn prefetch(&self, start: usize, len: usize) {
+        (**self).prefetch(start, len)
+    }
+
+    fn sync(&self) -> Result<()> {
+        (**self).sync()
+    }
 }
 
 /// A source of limbs: `fill_limbs(first, out)` writes limbs
@@ -53,6 +82,13 @@ impl LimbSource for Vec<u64> {
     fn fill_limbs(&self, first: usize, out: &mut [u64]) {
         self.as_slice().fill_limbs(first, out)
     }
+}
+
+/// The bytes of a slice of words, in native order (for hashing).
+pub fn words_as_bytes(words: &[u64]) -> &[u8] {
+    // SAFETY: u8 has no alignment requirement and every u64 is 8 plain
+    // bytes; the view borrows `words` for its whole life.
+    unsafe { std::slice::from_raw_parts(words.as_ptr() as *const u8, words.len() * 8) }
 }
 
 /// An owned, zero-initialised array of words in an anonymous memory
