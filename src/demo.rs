@@ -55,6 +55,9 @@ pub fn run(dir: &Path, digits: u64, threads: usize, force: bool) -> Result<DemoR
         algorithm: Force::Auto,
         memory: None,
         scratch: None,
+        restart: false,
+        keep_state: false,
+        faults: None,
     })?;
     let mut residues = [0u64; 3];
     for (r, path) in residues.iter_mut().zip([&a, &b, &c]) {

@@ -3,11 +3,12 @@
 
 use crate::carry::{self, U192};
 use crate::fourstep::{FourStep, NoLog, Shape};
+use crate::ooc::OutOfCore;
 use crate::pieces;
 use crate::plan::{self, Algorithm, Force, Plan, Request};
 use crate::radix::Radix;
 use crate::schoolbook;
-use crate::scratch::FileStore;
+use crate::scratch::FileSpace;
 pub use crate::storage::LimbSource;
 use crate::storage::{RamStore, Store, WordBuf};
 use crate::Result;
@@ -215,10 +216,10 @@ where
 pub enum Product {
     /// Limbs in RAM, no leading zeros.
     Ram(WordBuf),
-    /// Limbs in a scratch file (removed when dropped), `len` significant.
+    /// Limbs in a scratch store, `len` significant.
     Disk {
-        /// The file holding the limbs from word 0.
-        store: FileStore,
+        /// The store holding the limbs from word 0.
+        store: Box<dyn Store>,
         /// Significant limbs.
         len: usize,
     },
@@ -263,7 +264,9 @@ where
 {
     match plan.algorithm {
         Algorithm::OutOfCore { shape, window } => {
-            ooc_product(plan, shape, window, a, b, scratch_dir, timer)
+            let space = FileSpace::temporary(scratch_dir);
+            let (run, _) = OutOfCore::open(plan, (shape, window), &space, None, &[])?;
+            run.run(a, b, timer)
         }
         Algorithm::Ntt { shape } => {
             ntt_product(plan, shape, a, b, timer).map(|w| Product::Ram(trim(w)))
@@ -295,73 +298,6 @@ pub(crate) fn scratch_path(dir: &Path, what: &str) -> std::path::PathBuf {
         ".vastmul-scratch-{}-{n}-{what}",
         std::process::id()
     ))
-}
-
-/// The NTT over scratch files: the same passes as in RAM, through
-/// [`FileStore`]s, with the carry pass in windows of `window` limbs written
-/// to the reused store.
-fn ooc_product<A, B>(
-    plan: &Plan,
-    shape: Shape,
-    window: usize,
-    a: &A,
-    b: &B,
-    dir: &Path,
-    timer: &mut Timer,
-) -> Result<Product>
-where
-    A: LimbSource + ?Sized,
-    B: LimbSource + ?Sized,
-{
-    let (la, lb) = (plan.a_limbs, plan.b_limbs);
-    let fs = FourStep::new(shape);
-    let n = shape.len();
-    let count = la + lb - 1;
-    let stores_a = [
-        FileStore::create(&scratch_path(dir, "a0"), n)?,
-        FileStore::create(&scratch_path(dir, "a1"), n)?,
-        FileStore::create(&scratch_path(dir, "a2"), n)?,
-    ];
-    let spare = FileStore::create(&scratch_path(dir, "b"), n.max(plan.product_limbs))?;
-    transform_passes(
-        &fs,
-        (la, lb, plan.square),
-        a,
-        b,
-        &stores_a,
-        Some(&spare),
-        timer,
-    )?;
-    let a_refs: Vec<&FileStore> = stores_a.iter().collect();
-    let len = timer.pass("CRT and carry", || {
-        let failure = std::sync::Mutex::new(None);
-        let mut digits = vec![0u64; window];
-        let mut carry = [0u64; 3];
-        let mut first = 0;
-        while first < count {
-            let w = window.min(count - first);
-            carry = carry::propagate_block(
-                |f, dst: &mut [U192]| {
-                    let mut tmp = Default::default();
-                    if let Err(e) = fs.coefficients(&a_refs, first + f, dst, &mut tmp) {
-                        *failure.lock().unwrap() = Some(e);
-                    }
-                },
-                plan.radix,
-                carry,
-                &mut digits[..w],
-            );
-            if let Some(e) = failure.lock().unwrap().take() {
-                return Err(e);
-            }
-            spare.write(first, &digits[..w])?;
-            first += w;
-        }
-        let top = carry::carry_limbs(carry, plan.radix);
-        spare.write(count, &top)?;
-        Ok(count + top.len())
-    })?;
-    Ok(Product::Disk { store: spare, len })
 }
 
 fn trimmed(x: &[u64]) -> &[u64] {

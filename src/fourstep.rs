@@ -84,7 +84,8 @@ impl BlockLog for NoLog {}
 
 /// The BLAKE3 of a buffer of words, when the log wants one.
 fn digest(log: &dyn BlockLog, words: &[u64]) -> Option<blake3::Hash> {
-    log.wants_hash().then(|| blake3::hash(crate::storage::words_as_bytes(words)))
+    log.wants_hash()
+        .then(|| blake3::hash(crate::storage::words_as_bytes(words)))
 }
 
 /// Tables of one prime for one shape.
@@ -225,7 +226,7 @@ impl FourStep {
         logs: &[&dyn BlockLog],
     ) -> Result<()>
     where
-        S: Store,
+        S: Store + ?Sized,
         L: LimbSource + ?Sized,
     {
         let Shape { rows, cols, lanes } = self.shape;
@@ -278,7 +279,7 @@ impl FourStep {
     /// writes elsewhere, so that a block interrupted halfway can be redone
     /// from intact inputs). With `b` as `None` the operand is squared and
     /// its second transform skipped. Each row is a block of `log`.
-    pub fn rows<S: Store>(
+    pub fn rows<S: Store + ?Sized>(
         &self,
         k: usize,
         a: &S,
@@ -339,7 +340,7 @@ impl FourStep {
     /// Inverse column pass for prime `k`: reads what the row pass left in
     /// `src` and leaves the (scaled, lazily reduced) residues of the
     /// convolution in natural order in `dst` (which may be `src`).
-    pub fn inverse_columns<S: Store>(
+    pub fn inverse_columns<S: Store + ?Sized>(
         &self,
         k: usize,
         src: &S,
@@ -381,7 +382,11 @@ impl FourStep {
 
     /// The BLAKE3 of column block `block` of `store`, laid out as the
     /// column passes hash it: for checking a journaled block.
-    pub fn column_block_hash<S: Store>(&self, store: &S, block: usize) -> Result<blake3::Hash> {
+    pub fn column_block_hash<S: Store + ?Sized>(
+        &self,
+        store: &S,
+        block: usize,
+    ) -> Result<blake3::Hash> {
         let Shape { rows, cols, lanes } = self.shape;
         let mut buf = vec![0u64; rows * lanes];
         for (n1, seg) in buf.chunks_exact_mut(lanes).enumerate() {
@@ -391,7 +396,7 @@ impl FourStep {
     }
 
     /// The BLAKE3 of row `row` of `store`, as the row pass hashes it.
-    pub fn row_hash<S: Store>(&self, store: &S, row: usize) -> Result<blake3::Hash> {
+    pub fn row_hash<S: Store + ?Sized>(&self, store: &S, row: usize) -> Result<blake3::Hash> {
         let cols = self.shape.cols;
         let mut buf = vec![0u64; cols];
         store.read(row * cols, &mut buf)?;
@@ -400,7 +405,7 @@ impl FourStep {
 
     /// The exact coefficients `first..first + out.len()` from the residue
     /// stores left by [`FourStep::inverse_columns`] for every prime.
-    pub fn coefficients<S: Store>(
+    pub fn coefficients<S: Store + ?Sized>(
         &self,
         stores: &[&S],
         first: usize,
@@ -420,7 +425,7 @@ impl FourStep {
     /// Checks that the coefficients from `first` to the transform's end
     /// are zero, as they must be past the product's end: anything else means
     /// corrupted memory or scratch data.
-    pub fn check_zero_tail<S: Store>(&self, stores: &[&S], first: usize) -> Result<()> {
+    pub fn check_zero_tail<S: Store + ?Sized>(&self, stores: &[&S], first: usize) -> Result<()> {
         let n = self.shape.len();
         let mut k = first;
         while k < n {
@@ -432,7 +437,7 @@ impl FourStep {
     }
 
     /// [`FourStep::check_zero_tail`] for coefficients `first..first + len`.
-    fn check_zero_tail_range<S: Store>(
+    fn check_zero_tail_range<S: Store + ?Sized>(
         &self,
         stores: &[&S],
         first: usize,

@@ -21,7 +21,10 @@ pub fn install() {
         // atomic store, which is async-signal-safe; `signal` only records
         // its address.
         unsafe {
-            libc::signal(sig, on_signal as extern "C" fn(libc::c_int) as libc::sighandler_t);
+            libc::signal(
+                sig,
+                on_signal as extern "C" fn(libc::c_int) as libc::sighandler_t,
+            );
         }
     }
 }

@@ -3,13 +3,17 @@
 
 use crate::engine::{self, LimbSource};
 use crate::engine::{PassTime, Product, Timer};
+use crate::faults::FaultySpace;
 use crate::format::{
     format_radix_compatible, write_operand_file, write_text_file_from, Format, Operand,
 };
+use crate::ooc::{OutOfCore, Space};
 use crate::output::{ensure_distinct, AtomicOutput};
-use crate::plan::{self, Force, Plan, Request};
+use crate::plan::{self, Algorithm, Force, Plan, Request};
 use crate::scratch::free_space;
+use crate::scratch::FileSpace;
 use crate::size::{default_budget, show_size};
+use crate::state::{identify, Found, Journal, Manifest, Record, StateDir, STATE_VERSION};
 use crate::storage::Store;
 use crate::{Error, Result};
 use rayon::prelude::*;
@@ -40,6 +44,13 @@ pub struct MulOptions {
     pub memory: Option<u64>,
     /// Directory for scratch files (`None`: the output's directory).
     pub scratch: Option<PathBuf>,
+    /// Discard any state an interrupted run left, and start over.
+    pub restart: bool,
+    /// Keep the state directory after success.
+    pub keep_state: bool,
+    /// Injected scratch I/O faults (tests of the recovery paths only).
+    #[doc(hidden)]
+    pub faults: Option<std::sync::Arc<crate::faults::FaultPlan>>,
 }
 
 /// What a multiplication did.
@@ -59,6 +70,13 @@ pub struct MulReport {
     pub product_limbs: usize,
     /// Wall time of each pass, named as in the plan's passes.
     pub passes: Vec<PassTime>,
+    /// Seconds spent hashing the operands for the state's manifest (out of
+    /// core only).
+    pub identify_seconds: f64,
+    /// Where an interrupted run was resumed, when it was.
+    pub resumed_at: Option<String>,
+    /// What a resume found wrong in the saved state, and what it did.
+    pub resume_notes: Vec<String>,
 }
 
 impl LimbSource for Operand {
@@ -203,6 +221,25 @@ fn scratch_dir(opts: &MulOptions, needed: u64) -> Result<PathBuf> {
             "create it, or pass --scratch with an existing directory",
         ));
     }
+    let probe = dir.join(format!(".vastmul-probe-{}", std::process::id()));
+    match std::fs::OpenOptions::new()
+        .write(true)
+        .create_new(true)
+        .open(&probe)
+    {
+        Ok(_) => {
+            let _ = std::fs::remove_file(&probe);
+        }
+        Err(e) => {
+            return Err(Error::usage(
+                format!("scratch directory {} is not writable: {e}", dir.display()),
+                "pass --scratch with a directory you can write to, on a disk with room",
+            ))
+        }
+    }
+    // Scratch files an interrupted run left for this output are reused.
+    let kept = state_bytes(&StateDir::for_output(&dir, &opts.output));
+    let needed = needed.saturating_sub(kept);
     let free = free_space(&dir)?;
     if free < needed {
         return Err(Error::Resources {
@@ -216,6 +253,172 @@ fn scratch_dir(opts: &MulOptions, needed: u64) -> Result<PathBuf> {
         });
     }
     Ok(dir)
+}
+
+/// The pass after the last one `timer` saw finish, for messages.
+fn position_after(timer: &Timer, plan: &Plan) -> String {
+    let i = timer.passes.len().saturating_sub(1);
+    match timer.passes.last() {
+        Some(p) => format!(
+            "pass {} of {} ({})",
+            plan.passes
+                .iter()
+                .position(|q| q.name == p.name)
+                .unwrap_or(i)
+                + 1,
+            plan.passes.len(),
+            p.name
+        ),
+        None => "the start".into(),
+    }
+}
+
+/// Disk bytes held by the files of a state directory (0 when none).
+fn state_bytes(state: &StateDir) -> u64 {
+    use std::os::unix::fs::MetadataExt;
+    std::fs::read_dir(state.path()).map_or(0, |entries| {
+        entries
+            .filter_map(|e| e.ok()?.metadata().ok())
+            .map(|m| m.blocks() * 512)
+            .sum()
+    })
+}
+
+/// The state of an out-of-core run: found and checked, or created fresh.
+struct RunState {
+    dir: StateDir,
+    journal: Journal,
+    records: Vec<Record>,
+    notes: Vec<String>,
+    identify_seconds: f64,
+}
+
+/// Finds the state an interrupted run left for this output, refusing it
+/// when it belongs to other work, or starts a fresh one.
+fn open_state(
+    opts: &MulOptions,
+    ops: &Operands,
+    plan: &Plan,
+    out_format: Format,
+    dir: &Path,
+) -> Result<RunState> {
+    let state = StateDir::for_output(dir, &opts.output);
+    if opts.restart {
+        state.remove()?;
+    }
+    let t = Instant::now();
+    let mut operands = vec![identify(&opts.a)?];
+    if ops.b.is_some() {
+        operands.push(identify(&opts.b)?);
+    }
+    let identify_seconds = t.elapsed().as_secs_f64();
+    let manifest = Manifest {
+        version: STATE_VERSION,
+        tool: env!("CARGO_PKG_VERSION").into(),
+        operands,
+        plan: plan.clone(),
+        output: opts.output.clone(),
+        out_format,
+    };
+    let mut notes = Vec::new();
+    let refuse = |what: String| {
+        Error::usage(
+            format!("{}: {what}", state.path().display()),
+            "rerun with the original inputs and options to resume, or pass --restart to discard              the saved state and start over",
+        )
+    };
+    match state.find() {
+        Found::Nothing => state.create(&manifest)?,
+        Found::Broken(why) => {
+            notes.push(format!(
+                "discarded unusable saved state ({why}); starting over"
+            ));
+            state.remove()?;
+            state.create(&manifest)?;
+        }
+        Found::Manifest(old) => {
+            if old.version != STATE_VERSION {
+                return Err(refuse(format!(
+                    "saved state of format version {} (written by vastmul {}); this vastmul reads version {STATE_VERSION}",
+                    old.version, old.tool
+                )));
+            }
+            if old.operands.len() != manifest.operands.len() {
+                return Err(refuse(
+                    "saved state is for a different pair of operands".into(),
+                ));
+            }
+            for (was, now) in old.operands.iter().zip(&manifest.operands) {
+                if was.size != now.size || was.blake3 != now.blake3 {
+                    return Err(refuse(format!(
+                        "{} changed since the interrupted run (size {} -> {} bytes, BLAKE3 {} -> {})",
+                        now.path.display(),
+                        was.size,
+                        now.size,
+                        &was.blake3[..16],
+                        &now.blake3[..16]
+                    )));
+                }
+            }
+            if old.plan != manifest.plan {
+                return Err(refuse(
+                    "saved state follows a different plan (other --memory, --threads or operands)"
+                        .into(),
+                ));
+            }
+            if old.out_format != manifest.out_format {
+                return Err(refuse(format!(
+                    "saved state writes the product as {}, not {}",
+                    old.out_format, manifest.out_format
+                )));
+            }
+        }
+    }
+    let (journal, load) = state.journal()?;
+    if load.dropped_bytes > 0 {
+        notes.push(format!(
+            "the journal ended in {} damaged or torn byte(s); they were dropped and their blocks are redone",
+            load.dropped_bytes
+        ));
+    }
+    Ok(RunState {
+        dir: state,
+        journal,
+        records: load.records,
+        notes,
+        identify_seconds,
+    })
+}
+
+/// An error of a checkpointed run, completed with what was kept.
+fn with_state_note(e: Error, state: &StateDir, position: &str) -> Error {
+    match e {
+        Error::Interrupted { .. } => Error::Interrupted {
+            what: format!("stopped by a signal at {position}"),
+            resume: format!(
+                "rerun the same command to continue from there (state kept in {}; --restart discards it)",
+                state.path().display()
+            ),
+        },
+        Error::Resources { what, fix } => Error::Resources {
+            what,
+            fix: format!(
+                "{fix}; the completed blocks are kept in {} ({position}) and a rerun resumes from them",
+                state.path().display()
+            ),
+        },
+        Error::Io { path, source } => Error::Io {
+            path,
+            source: std::io::Error::new(
+                source.kind(),
+                format!(
+                    "{source}; the completed blocks are kept in {} ({position}), rerun the same command to resume",
+                    state.path().display()
+                ),
+            ),
+        },
+        other => other,
+    }
 }
 
 /// Multiplies two operand files into an output file.
@@ -277,12 +480,66 @@ pub fn multiply_files(opts: &MulOptions) -> Result<MulReport> {
 
     let compute = Instant::now();
     let mut timer = Timer::default();
-    let product = if plan.release_inputs {
+    if plan.release_inputs {
         a.expect_scattered_reads();
         b.expect_scattered_reads();
-        engine::execute_timed(&plan, &Released(a), &Released(b), &dir, &mut timer)?
-    } else {
-        engine::execute_timed(&plan, a, b, &dir, &mut timer)?
+    }
+    let mut state = None;
+    let mut resumed_at = None;
+    let mut resume_notes = Vec::new();
+    let mut identify_seconds = 0.0;
+    let product = match plan.algorithm {
+        Algorithm::OutOfCore { shape, window } => {
+            let st = open_state(opts, &ops, &plan, out_format, &dir)?;
+            identify_seconds = st.identify_seconds;
+            for n in &st.notes {
+                eprintln!("vastmul: {n}");
+            }
+            let files = FileSpace::kept(st.dir.path());
+            let faulty;
+            let space: &dyn Space = match &opts.faults {
+                Some(f) => {
+                    faulty = FaultySpace {
+                        inner: &files,
+                        plan: f.clone(),
+                    };
+                    &faulty
+                }
+                None => &files,
+            };
+            let (run, resumed) = OutOfCore::open(
+                &plan,
+                (shape, window),
+                space,
+                Some(&st.journal),
+                &st.records,
+            )
+            .map_err(|e| with_state_note(e, &st.dir, "opening the saved state"))?;
+            resume_notes.extend(st.notes.iter().cloned());
+            resume_notes.extend(resumed.problems.iter().cloned());
+            let position = run.position();
+            if !st.records.is_empty() {
+                eprintln!(
+                    "vastmul: resuming from {}: {position} ({} block(s) verified, {} dropped)",
+                    st.dir.path().display(),
+                    resumed.kept_blocks,
+                    resumed.dropped_blocks
+                );
+                for p in &resumed.problems {
+                    eprintln!("vastmul: {p}");
+                }
+                resumed_at = Some(position.clone());
+            }
+            let product = run
+                .run(&Released(a), &Released(b), &mut timer)
+                .map_err(|e| with_state_note(e, &st.dir, &position_after(&timer, &plan)))?;
+            state = Some(st);
+            product
+        }
+        _ if plan.release_inputs => {
+            engine::execute_timed(&plan, &Released(a), &Released(b), &dir, &mut timer)?
+        }
+        _ => engine::execute_timed(&plan, a, b, &dir, &mut timer)?,
     };
     let compute_seconds = compute.elapsed().as_secs_f64();
 
@@ -297,14 +554,49 @@ pub fn multiply_files(opts: &MulOptions) -> Result<MulReport> {
             negative,
             *len,
             &|first, dst| {
+                if crate::interrupt::requested() {
+                    return Err(std::io::Error::new(
+                        std::io::ErrorKind::Interrupted,
+                        "stopped by a signal",
+                    ));
+                }
                 store
                     .read(first, dst)
                     .map_err(|e| std::io::Error::other(e.to_string()))
             },
         ),
     }
-    .map_err(|e| Error::io(&target, e))?;
+    .map_err(|e| {
+        let e = if crate::interrupt::requested() {
+            Error::Interrupted {
+                what: String::new(),
+                resume: String::new(),
+            }
+        } else if e.raw_os_error() == Some(libc::ENOSPC) {
+            Error::Resources {
+                what: format!(
+                    "{}: the disk filled up while the product was written",
+                    target.display()
+                ),
+                fix: "free space there".into(),
+            }
+        } else {
+            Error::io(&target, e)
+        };
+        match &state {
+            Some(st) => with_state_note(e, &st.dir, "write the product: all computing done"),
+            None => match e {
+                Error::Interrupted { .. } => crate::interrupt::check().unwrap_err(),
+                other => other,
+            },
+        }
+    })?;
     out.commit()?;
+    if let Some(st) = state {
+        if !opts.keep_state {
+            st.dir.remove()?;
+        }
+    }
     timer.passes.push(PassTime {
         name: "write the product".into(),
         seconds: write.elapsed().as_secs_f64(),
@@ -317,5 +609,8 @@ pub fn multiply_files(opts: &MulOptions) -> Result<MulReport> {
         write_seconds: write.elapsed().as_secs_f64(),
         product_limbs: product.len(),
         passes: timer.passes,
+        identify_seconds,
+        resumed_at,
+        resume_notes,
     })
 }

@@ -25,10 +25,12 @@
 #![warn(missing_docs)]
 
 pub mod error;
+pub mod faults;
 pub mod format;
 pub mod gen;
 pub mod info;
 pub mod interrupt;
+pub mod ooc;
 pub mod output;
 pub mod radix;
 pub mod rng;

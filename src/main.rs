@@ -104,9 +104,16 @@ enum Command {
         /// default: half of physical RAM). Beyond it the work goes to scratch files.
         #[arg(long, value_parser = parse_size_arg)]
         memory: Option<u64>,
-        /// Directory for scratch files (default: the output's directory).
+        /// Directory for scratch files and the resumable state of
+        /// out-of-core runs (default: the output's directory).
         #[arg(long)]
         scratch: Option<PathBuf>,
+        /// Discard the state an interrupted run left and start over.
+        #[arg(long)]
+        restart: bool,
+        /// Keep the state directory after success (it is removed otherwise).
+        #[arg(long)]
+        keep_state: bool,
         /// Print a machine-readable report on stdout.
         #[arg(long)]
         json: bool,
@@ -273,9 +280,12 @@ fn run(cli: Cli) -> Result<(), Error> {
             algorithm,
             memory,
             scratch,
+            restart,
+            keep_state,
             json,
         } => {
             let threads = set_threads(threads)?;
+            vastmul::interrupt::install();
             let opts = MulOptions {
                 a,
                 b,
@@ -292,6 +302,9 @@ fn run(cli: Cli) -> Result<(), Error> {
                 },
                 memory,
                 scratch,
+                restart,
+                keep_state,
+                faults: None,
             };
             let report = multiply_files(&opts)?;
             if json {

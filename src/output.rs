@@ -84,6 +84,7 @@ impl AtomicOutput {
             return Err(exists_error(target));
         }
 
+        remove_stale_partials(&dir, &name);
         let pid = std::process::id();
         loop {
             let n = TEMP_COUNTER.fetch_add(1, Ordering::Relaxed);
@@ -194,6 +195,36 @@ fn exists_error(target: &Path) -> Error {
         "exists",
         "pass --force to overwrite, or choose another path",
     )
+}
+
+/// Removes the temporary files that killed runs left for this target:
+/// files named `.NAME.vastmul-partial-PID-N` (our own naming, never a
+/// user's file) whose process no longer exists. A process that was killed
+/// with SIGKILL cannot clean up after itself.
+fn remove_stale_partials(dir: &Path, name: &std::ffi::OsStr) {
+    let mut prefix = std::ffi::OsString::from(".");
+    prefix.push(name);
+    prefix.push(".vastmul-partial-");
+    let prefix = prefix.to_string_lossy().into_owned();
+    let Ok(entries) = std::fs::read_dir(dir) else {
+        return;
+    };
+    for entry in entries.flatten() {
+        let file_name = entry.file_name();
+        let Some(rest) = file_name.to_str().and_then(|f| f.strip_prefix(&prefix)) else {
+            continue;
+        };
+        let Some(pid) = rest.split('-').next().and_then(|p| p.parse::<i32>().ok()) else {
+            continue;
+        };
+        // SAFETY: kill with signal 0 sends nothing; it only reports whether
+        // the process exists.
+        let gone = unsafe { libc::kill(pid, 0) } != 0
+            && io::Error::last_os_error().raw_os_error() == Some(libc::ESRCH);
+        if gone {
+            let _ = std::fs::remove_file(entry.path());
+        }
+    }
 }
 
 /// Makes the rename durable. Directories cannot be opened for syncing on

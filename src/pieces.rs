@@ -219,7 +219,7 @@ where
             let last = &workers[(count - 1) % batch.max(1)].product[..len + ls];
             let significant = last.iter().rposition(|&x| x != 0).map_or(0, |i| i + 1);
             Product::Disk {
-                store,
+                store: Box::new(store),
                 len: first + significant,
             }
         }

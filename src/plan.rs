@@ -557,7 +557,10 @@ fn plan_out_of_core(req: &Request, mut plan: Plan, coefficients: usize) -> Resul
     plan.algorithm = Algorithm::OutOfCore { shape, window };
     plan.release_inputs = true;
     plan.ram_bytes = need;
-    plan.scratch_bytes = 8 * (PRIME_COUNT as u64 * n_words + spare_words);
+    // Three residue stores, one for B and then the product's limbs, and one
+    // for the row pass's output (so that no pass writes where it reads, and
+    // an interrupted block can always be redone).
+    plan.scratch_bytes = 8 * (PRIME_COUNT as u64 * n_words + spare_words + n_words);
     plan.passes = ntt_passes(req, shape);
     Ok(plan)
 }

@@ -189,6 +189,44 @@ impl Store for FileStore {
     }
 }
 
+/// A directory of scratch stores for an out-of-core run: temporary ones
+/// (removed when dropped, for runs without state), or ones kept as part of
+/// a run's resumable state.
+pub struct FileSpace {
+    dir: PathBuf,
+    kept: bool,
+}
+
+impl FileSpace {
+    /// Stores with unique names in `dir`, removed when dropped.
+    pub fn temporary(dir: &Path) -> Self {
+        FileSpace {
+            dir: dir.to_path_buf(),
+            kept: false,
+        }
+    }
+
+    /// Stores named as asked in the state directory `dir`, kept.
+    pub fn kept(dir: &Path) -> Self {
+        FileSpace {
+            dir: dir.to_path_buf(),
+            kept: true,
+        }
+    }
+}
+
+impl crate::ooc::Space for FileSpace {
+    fn store(&self, name: &str, len: usize) -> Result<(Box<dyn Store>, bool)> {
+        if self.kept {
+            let (s, reused) = FileStore::open_kept(&self.dir.join(name), len)?;
+            Ok((Box::new(s), reused))
+        } else {
+            let s = FileStore::create(&crate::engine::scratch_path(&self.dir, name), len)?;
+            Ok((Box::new(s), false))
+        }
+    }
+}
+
 /// Bytes available to an unprivileged user on the file system holding
 /// `dir`.
 pub fn free_space(dir: &Path) -> Result<u64> {

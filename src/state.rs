@@ -279,7 +279,8 @@ impl Journal {
             .open(path)
             .map_err(|e| Error::io(path, e))?;
         let mut bytes = Vec::new();
-        file.read_to_end(&mut bytes).map_err(|e| Error::io(path, e))?;
+        file.read_to_end(&mut bytes)
+            .map_err(|e| Error::io(path, e))?;
         let mut load = JournalLoad::default();
         let mut good = 0usize;
         for chunk in bytes.chunks(RECORD_BYTES) {
@@ -332,7 +333,12 @@ impl Journal {
             bytes.extend_from_slice(&r.encode());
         }
         let dir = self.path.parent().unwrap_or(Path::new("."));
-        let name = self.path.file_name().unwrap().to_string_lossy().into_owned();
+        let name = self
+            .path
+            .file_name()
+            .unwrap()
+            .to_string_lossy()
+            .into_owned();
         replace_atomically(dir, &name, &bytes)?;
         let file = OpenOptions::new()
             .read(true)
