@@ -529,6 +529,12 @@ pub fn multiply_files(opts: &MulOptions) -> Result<MulReport> {
                     eprintln!("vastmul: {p}");
                 }
                 resumed_at = Some(position.clone());
+            } else {
+                eprintln!(
+                    "vastmul: out of core; the run's state is kept in {} until it completes, \
+                     and an interrupted run resumes from it",
+                    st.dir.path().display()
+                );
             }
             let product = run
                 .run(&Released(a), &Released(b), &mut timer)

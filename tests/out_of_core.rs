@@ -247,3 +247,145 @@ fn a_disk_too_small_is_refused_before_any_work() {
     );
     assert!(!err.contains("panicked"));
 }
+
+/// The last journal record's step in the state directory under `dir`.
+fn journal_step(dir: &Path) -> Option<u16> {
+    let state = std::fs::read_dir(dir).ok()?.flatten().find(|e| {
+        e.file_name()
+            .to_string_lossy()
+            .starts_with(".vastmul-state-")
+    })?;
+    let bytes = std::fs::read(state.path().join("journal")).ok()?;
+    let whole = bytes.len() / 80 * 80;
+    (whole > 0).then(|| u16::from_le_bytes([bytes[whole - 76], bytes[whole - 75]]))
+}
+
+#[test]
+fn a_disk_that_fills_mid_run_keeps_the_state_and_the_rerun_completes() {
+    let t = tempfile::tempdir().unwrap();
+    let d = t.path();
+    let Some(disk) = TinyDisk::mount(&d.join("tiny"), "40m") else {
+        println!("skipped: cannot mount a tmpfs here (needs root and mount permission)");
+        return;
+    };
+    write_two_operands(d);
+    let o = run_in(d, &["mul", "a.txt", "b.txt", "-o", "ram.txt"]);
+    assert!(o.status.success());
+    // Scratch and product on the tiny disk; it fills once the transforms
+    // are done, before the product is written.
+    let args = [
+        "mul",
+        "a.txt",
+        "b.txt",
+        "-o",
+        "tiny/c.txt",
+        "--memory",
+        "24MiB",
+    ];
+    let mut child = std::process::Command::new(env!("CARGO_BIN_EXE_vastmul"))
+        .args(args)
+        .current_dir(d)
+        .stderr(std::process::Stdio::piped())
+        .spawn()
+        .unwrap();
+    while journal_step(&disk.0).map_or(true, |s| s < 9) {
+        assert!(
+            child.try_wait().unwrap().is_none(),
+            "finished before the disk filled"
+        );
+        std::thread::sleep(std::time::Duration::from_millis(1));
+    }
+    let filler = disk.0.join("filler");
+    {
+        use std::io::Write;
+        let mut f = std::fs::File::create(&filler).unwrap();
+        let block = vec![0u8; 1 << 16];
+        while f.write_all(&block).is_ok() {}
+    }
+    let out = child.wait_with_output().unwrap();
+    let err = String::from_utf8_lossy(&out.stderr);
+    assert_eq!(out.status.code(), Some(5), "{err}");
+    assert!(err.contains("filled up"), "{err}");
+    assert!(err.contains("kept in") && err.contains("resumes"), "{err}");
+    assert!(!disk.0.join("c.txt").exists(), "a partial product at -o");
+    // Free the space: the rerun verifies the saved state, skips every pass
+    // and writes the product.
+    std::fs::remove_file(&filler).unwrap();
+    let o = run_in(d, &args);
+    let err = String::from_utf8_lossy(&o.stderr);
+    assert!(o.status.success(), "{err}");
+    assert!(
+        err.contains("resuming from") && err.contains("write the product"),
+        "{err}"
+    );
+    assert_eq!(
+        std::fs::read(d.join("ram.txt")).unwrap(),
+        std::fs::read(disk.0.join("c.txt")).unwrap()
+    );
+    let left: Vec<_> = std::fs::read_dir(&disk.0)
+        .unwrap()
+        .flatten()
+        .map(|e| e.file_name())
+        .collect();
+    assert_eq!(left.len(), 1, "only the product is left: {left:?}");
+}
+
+#[test]
+fn missing_and_unwritable_scratch_directories_are_refused() {
+    let t = tempfile::tempdir().unwrap();
+    let d = t.path();
+    write_two_operands(d);
+    let o = run_in(
+        d,
+        &[
+            "mul",
+            "a.txt",
+            "b.txt",
+            "-o",
+            "c.txt",
+            "--memory",
+            "24MiB",
+            "--scratch",
+            "nowhere",
+        ],
+    );
+    let err = String::from_utf8_lossy(&o.stderr);
+    assert_eq!(o.status.code(), Some(2), "{err}");
+    assert!(
+        err.contains("nowhere") && err.contains("does not exist"),
+        "{err}"
+    );
+    assert!(!d.join("c.txt").exists());
+    // A read-only file system: permission bits do not stop root, a
+    // read-only mount does.
+    let ro = d.join("ro");
+    std::fs::create_dir_all(&ro).unwrap();
+    let mounted = std::process::Command::new("mount")
+        .args(["-t", "tmpfs", "-o", "ro,size=1m", "tmpfs"])
+        .arg(&ro)
+        .status()
+        .is_ok_and(|s| s.success());
+    if !mounted {
+        println!("skipped the read-only case: cannot mount a tmpfs here (needs root)");
+        return;
+    }
+    let _unmount = TinyDisk(ro.clone());
+    let o = run_in(
+        d,
+        &[
+            "mul",
+            "a.txt",
+            "b.txt",
+            "-o",
+            "c.txt",
+            "--memory",
+            "24MiB",
+            "--scratch",
+            "ro",
+        ],
+    );
+    let err = String::from_utf8_lossy(&o.stderr);
+    assert_eq!(o.status.code(), Some(2), "{err}");
+    assert!(err.contains("not writable"), "{err}");
+    assert!(!d.join("c.txt").exists());
+}
