@@ -12,7 +12,9 @@
 #   BUDGET  --memory for the out-of-core run (default 256MiB)
 # Environment: OOC_DIR (data and scratch folder, default target/ooc),
 #   OOC_THREADS (default: all cores), OOC_SKIP_RAM=1 (out-of-core run only,
-#   for operands whose in-memory plan does not fit this machine).
+#   for operands whose in-memory plan does not fit this machine),
+#   OOC_CHECKPOINT_COST=0 (skip the second out-of-core run without
+#   checkpoints that measures their cost).
 # Also samples the scratch file system's disk use during the out-of-core
 # run and checks its product with `vastmul check`.
 # Disk: two operands of DIGITS bytes, two products of 2*DIGITS bytes, and
@@ -73,6 +75,13 @@ base=$(used)
 sampler=$!
 run "out-of-core-$budget" "$dir/product-ooc.txt" --memory "$budget" --scratch "$dir/scratch"
 kill "$sampler" 2>/dev/null || true
+# The same out-of-core run keeping no resumable state: what checkpoints
+# (hashing every block, the journal, syncs, hashing the operands) cost.
+if [ "${OOC_CHECKPOINT_COST:-1}" = 1 ]; then
+  run "out-of-core-$budget-no-checkpoint" "$dir/product-nock.txt" --memory "$budget" --scratch "$dir/scratch" --no-checkpoint
+  cmp -s "$dir/product-ooc.txt" "$dir/product-nock.txt" || { echo "checkpointed and plain products differ"; exit 1; }
+  rm -f "$dir/product-nock.txt"
+fi
 peak=$(cat "$dir/disk-peak" 2>/dev/null || echo "$base")
 python3 - "$dir/plan.json" "$base" "$peak" <<'PY'
 import json, sys
@@ -82,6 +91,21 @@ prod = 19 * p['product_limbs']
 print(f"\n- disk: plan says {p['scratch_bytes'] / 2**20:.1f} MiB of scratch plus about "
       f"{prod / 2**20:.1f} MiB of product text; the file system's use peaked "
       f"{(peak - base) / 2**20:.1f} MiB above its level before the run (sampled every second)")
+PY
+python3 - "$dir" "$budget" <<'PY'
+import sys
+d, budget = sys.argv[1], sys.argv[2]
+def wall(label):
+    for line in open(f"{d}/time-{label}.log"):
+        if "Elapsed (wall clock)" in line:
+            parts = [float(x) for x in line.split()[-1].split(":")]
+            return sum(p * 60 ** i for i, p in enumerate(reversed(parts)))
+try:
+    w, n = wall(f"out-of-core-{budget}"), wall(f"out-of-core-{budget}-no-checkpoint")
+    print(f"\n- checkpoint cost: {w:.2f} s with checkpoints, {n:.2f} s without: "
+          f"{100 * (w / n - 1):+.1f}% of wall time")
+except (FileNotFoundError, TypeError):
+    pass
 PY
 echo
 echo "## Passes: planned bytes, measured time, achieved MB/s (read + write)"

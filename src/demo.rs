@@ -57,6 +57,7 @@ pub fn run(dir: &Path, digits: u64, threads: usize, force: bool) -> Result<DemoR
         scratch: None,
         restart: false,
         keep_state: false,
+        checkpoint: true,
         faults: None,
     })?;
     let mut residues = [0u64; 3];

@@ -48,6 +48,9 @@ pub struct MulOptions {
     pub restart: bool,
     /// Keep the state directory after success.
     pub keep_state: bool,
+    /// Keep resumable state for out-of-core runs (the default); without it
+    /// an interrupted run starts over (for measuring what checkpoints cost).
+    pub checkpoint: bool,
     /// Injected scratch I/O faults (tests of the recovery paths only).
     #[doc(hidden)]
     pub faults: Option<std::sync::Arc<crate::faults::FaultPlan>>,
@@ -489,6 +492,9 @@ pub fn multiply_files(opts: &MulOptions) -> Result<MulReport> {
     let mut resume_notes = Vec::new();
     let mut identify_seconds = 0.0;
     let product = match plan.algorithm {
+        Algorithm::OutOfCore { .. } if !opts.checkpoint => {
+            engine::execute_timed(&plan, &Released(a), &Released(b), &dir, &mut timer)?
+        }
         Algorithm::OutOfCore { shape, window } => {
             let st = open_state(opts, &ops, &plan, out_format, &dir)?;
             identify_seconds = st.identify_seconds;

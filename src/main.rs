@@ -114,6 +114,9 @@ enum Command {
         /// Keep the state directory after success (it is removed otherwise).
         #[arg(long)]
         keep_state: bool,
+        /// Keep no resumable state (benchmarks of what checkpoints cost).
+        #[arg(long, hide = true)]
+        no_checkpoint: bool,
         /// Print a machine-readable report on stdout.
         #[arg(long)]
         json: bool,
@@ -282,6 +285,7 @@ fn run(cli: Cli) -> Result<(), Error> {
             scratch,
             restart,
             keep_state,
+            no_checkpoint,
             json,
         } => {
             let threads = set_threads(threads)?;
@@ -304,6 +308,7 @@ fn run(cli: Cli) -> Result<(), Error> {
                 scratch,
                 restart,
                 keep_state,
+                checkpoint: !no_checkpoint,
                 faults: None,
             };
             let report = multiply_files(&opts)?;

@@ -51,6 +51,7 @@ fn options(dir: &Path, out: &str) -> MulOptions {
         scratch: None,
         restart: false,
         keep_state: false,
+        checkpoint: true,
         faults: None,
     }
 }
