@@ -70,6 +70,7 @@ echo "|---|---|---|---|"
 # Disk use of the scratch file system, sampled every second during the
 # out-of-core run, against the plan's scratch figure.
 used() { df -B1 --output=used "$dir/scratch" | tail -1; }
+rm -f "$dir/product-ooc.txt"
 base=$(used)
 ( peak=$base; while sleep 1; do u=$(used); [ "$u" -gt "$peak" ] && peak=$u; echo "$peak" > "$dir/disk-peak"; done ) &
 sampler=$!

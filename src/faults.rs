@@ -80,6 +80,11 @@ impl Store for FaultyStore {
         self.plan.tick("sync")?;
         self.inner.sync()
     }
+
+    fn discard(&self) -> Result<()> {
+        self.plan.tick("discard")?;
+        self.inner.discard()
+    }
 }
 
 /// A [`Space`] whose stores are [`FaultyStore`]s over another space's.

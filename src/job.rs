@@ -310,9 +310,9 @@ fn open_state(
         state.remove()?;
     }
     let t = Instant::now();
-    let mut operands = vec![identify(&opts.a)?];
-    if ops.b.is_some() {
-        operands.push(identify(&opts.b)?);
+    let mut operands = vec![identify(&opts.a, &ops.a)?];
+    if let Some(b) = &ops.b {
+        operands.push(identify(&opts.b, b)?);
     }
     let identify_seconds = t.elapsed().as_secs_f64();
     let manifest = Manifest {

@@ -50,6 +50,15 @@ pub mod step {
     pub const CARRY: u16 = 10;
 }
 
+/// How often the scratch stores and the journal are made durable (fsync).
+/// A process that is killed loses nothing it wrote (the page cache keeps
+/// it); a machine that crashes loses at most the work since the last sync,
+/// since anything later that did not reach the disk fails its hash on
+/// resume and is recomputed. Syncing after every pass instead would write
+/// scratch to disk that the page cache would otherwise hold for the whole
+/// run, which costs more than the work it protects on runs that fit there.
+pub const SYNC_INTERVAL: std::time::Duration = std::time::Duration::from_secs(60);
+
 /// Where an out-of-core run keeps its stores.
 pub trait Space: Sync {
     /// Opens store `name` of `len` words, reusing one left by an earlier
@@ -117,6 +126,7 @@ pub struct OutOfCore<'a> {
     journal: Option<&'a Journal>,
     done: Done,
     new: Mutex<Vec<Record>>,
+    last_sync: Mutex<std::time::Instant>,
     a: [Box<dyn Store>; 3],
     s: Box<dyn Store>,
     p: Box<dyn Store>,
@@ -165,13 +175,14 @@ impl<'a> OutOfCore<'a> {
             journal,
             done,
             new: Mutex::new(Vec::new()),
+            last_sync: Mutex::new(std::time::Instant::now()),
             a,
             s,
             p,
         };
         let mut resumed = Resumed::default();
         if !records.is_empty() {
-            if !reused {
+            if !reused && !run.complete(step::CARRY, 0) {
                 resumed
                     .problems
                     .push("scratch files were missing or of the wrong size".into());
@@ -367,6 +378,12 @@ impl<'a> OutOfCore<'a> {
                 self.blocks_of(step)
             )
         };
+        if self.complete(step::CARRY, 0) {
+            return format!(
+                "pass {n} of {n} (write the product): from its start",
+                n = self.plan.passes.len()
+            );
+        }
         for k in 0..3 {
             if !self.complete(step::COLUMNS_A, k as u16) && !self.chain_done(k) {
                 return name_count(
@@ -427,24 +444,75 @@ impl<'a> OutOfCore<'a> {
     }
 
     /// Makes `stores` and the journal durable: the end of a checkpoint.
-    fn checkpoint(&self, stores: &[&dyn Store]) -> Result<()> {
+    /// Makes the stores and the journal durable when [`SYNC_INTERVAL`] has
+    /// passed since the last time (or always, with `now`).
+    fn checkpoint(&self, now: bool) -> Result<()> {
         // A run without a journal keeps no state: nothing to make durable.
         let Some(j) = self.journal else {
             return Ok(());
         };
-        for s in stores {
+        let mut last = self.last_sync.lock().unwrap();
+        if !now && last.elapsed() < SYNC_INTERVAL {
+            return Ok(());
+        }
+        for s in self.a.iter().chain([&self.s, &self.p]) {
             s.sync()?;
         }
-        j.sync()
+        j.sync()?;
+        *last = std::time::Instant::now();
+        Ok(())
     }
 
-    /// Runs the remaining work and returns the product's limbs in `s`.
+    /// Runs the remaining work and returns the product's limbs in `s`. When
+    /// the run stops early (a signal, an error), what it wrote is synced
+    /// first, as far as the disk allows, so that a rerun finds it.
     pub fn run<A, B>(mut self, a: &A, b: &B, timer: &mut Timer) -> Result<Product>
     where
         A: LimbSource + ?Sized,
         B: LimbSource + ?Sized,
     {
+        match self.work(a, b, timer) {
+            Ok(len) => Ok(Product::Disk { store: self.s, len }),
+            Err(e) => {
+                // The error is what matters; a failing sync here only means
+                // the rerun recomputes more.
+                let _ = self.checkpoint(true);
+                Err(e)
+            }
+        }
+    }
+
+    /// The passes still to do; returns the product's significant limbs.
+    fn work<A, B>(&mut self, a: &A, b: &B, timer: &mut Timer) -> Result<usize>
+    where
+        A: LimbSource + ?Sized,
+        B: LimbSource + ?Sized,
+    {
         let (la, lb) = (self.plan.a_limbs, self.plan.b_limbs);
+        let count = self.coefficient_count();
+        // Once every carry window is journaled, only `s` is still needed.
+        if !self.complete(step::CARRY, 0) {
+            self.transforms(a, b, (la, lb), timer)?;
+            let a_refs: Vec<&dyn Store> = self.a.iter().map(|s| &**s).collect();
+            self.fs.check_zero_tail(&a_refs, count)?;
+        }
+        let len = timer.pass("CRT and carry", || self.carry_pass(count))?;
+        self.release_transforms()?;
+        Ok(len)
+    }
+
+    /// The column, row and inverse passes still to do.
+    fn transforms<A, B>(
+        &mut self,
+        a: &A,
+        b: &B,
+        (la, lb): (usize, usize),
+        timer: &mut Timer,
+    ) -> Result<()>
+    where
+        A: LimbSource + ?Sized,
+        B: LimbSource + ?Sized,
+    {
         // Columns of A for every prime whose chain needs them, in one read.
         let parts: Vec<usize> = (0..3)
             .filter(|&k| !self.chain_done(k) && !self.complete(step::COLUMNS_A, k as u16))
@@ -458,7 +526,7 @@ impl<'a> OutOfCore<'a> {
             let stores: Vec<&dyn Store> = parts.iter().map(|&k| &*self.a[k]).collect();
             timer.pass("columns of A, three primes", || {
                 self.fs.forward_columns(a, la, &parts, &stores, &log_refs)?;
-                self.checkpoint(&stores)
+                self.checkpoint(false)
             })?;
             drop(logs);
             self.absorb();
@@ -473,26 +541,45 @@ impl<'a> OutOfCore<'a> {
                 let log = self.log(step::columns_b(k), 0);
                 timer.pass(nb, || {
                     self.fs.forward_columns(b, lb, &[k], &[s], &[&log])?;
-                    self.checkpoint(&[s])
+                    self.checkpoint(false)
                 })?;
             }
             let log = self.log(step::rows(k), 0);
             timer.pass(nr, || {
                 self.fs.rows(k, &*self.a[k], b_store, &*self.p, &log)?;
-                self.checkpoint(&[&*self.p])
+                self.checkpoint(false)
             })?;
             let log = self.log(step::inverse(k), 0);
             timer.pass(ni, || {
                 self.fs.inverse_columns(k, &*self.p, &*self.a[k], &log)?;
-                self.checkpoint(&[&*self.a[k]])
+                self.checkpoint(false)
             })?;
             self.absorb();
         }
-        let count = self.coefficient_count();
-        let a_refs: Vec<&dyn Store> = self.a.iter().map(|s| &**s).collect();
-        self.fs.check_zero_tail(&a_refs, count)?;
-        let len = timer.pass("CRT and carry", || self.carry_pass(count))?;
-        Ok(Product::Disk { store: self.s, len })
+        Ok(())
+    }
+
+    /// Once the limbs are in `s`, the residue and row stores are no longer
+    /// read: their records are dropped from the journal and the files
+    /// truncated, so that their pages are not written back to the disk
+    /// while the product is written, and their space is free for it. A
+    /// resume that then finds `s` damaged starts over.
+    fn release_transforms(&mut self) -> Result<()> {
+        if let Some(j) = self.journal {
+            self.absorb();
+            self.done.retain(|&(step, _), _| step == step::CARRY);
+            let mut kept: Vec<Record> = self
+                .done
+                .values()
+                .flat_map(|m| m.values().copied())
+                .collect();
+            kept.sort_by_key(|r| r.block);
+            j.rewrite(&kept)?;
+        }
+        for s in self.a.iter().chain([&self.p]) {
+            s.discard()?;
+        }
+        Ok(())
     }
 
     /// The carry pass, window by window from the first not yet journaled,
@@ -529,18 +616,20 @@ impl<'a> OutOfCore<'a> {
             }
             self.s.write(first, &digits[..len])?;
             if let Some(j) = self.journal {
-                j.append(&Record {
+                let r = Record {
                     step: step::CARRY,
                     part: 0,
                     block: w as u64,
                     hash: *blake3::hash(words_as_bytes(&digits[..len])).as_bytes(),
                     carry,
-                })?;
+                };
+                j.append(&r)?;
+                self.new.lock().unwrap().push(r);
             }
         }
         let top = carry::carry_limbs(carry, self.plan.radix);
         self.s.write(count, &top)?;
-        self.checkpoint(&[&*self.s])?;
+        self.checkpoint(false)?;
         Ok(count + top.len())
     }
 }

@@ -166,6 +166,12 @@ impl Store for FileStore {
             .map_err(|e| scratch_error(&self.path, e))
     }
 
+    fn discard(&self) -> Result<()> {
+        self.file
+            .set_len(0)
+            .map_err(|e| scratch_error(&self.path, e))
+    }
+
     fn prefetch(&self, start: usize, len: usize) {
         let len = len.min(self.len.saturating_sub(start));
         if len == 0 {

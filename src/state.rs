@@ -51,40 +51,16 @@ fn stat(path: &Path) -> Result<(u64, i128)> {
     Ok((meta.len(), mtime))
 }
 
-/// Identifies `path`: size, modification time and the BLAKE3 of its
-/// content, read in 4 MiB windows (so the pages read do not pile up in the
-/// process) and hashed on all threads.
-pub fn identify(path: &Path) -> Result<OperandId> {
+/// Identifies the operand at `path`: size, modification time and the
+/// BLAKE3 of its content.
+pub fn identify(path: &Path, operand: &crate::format::Operand) -> Result<OperandId> {
     let (size, mtime_ns) = stat(path)?;
-    let mut file = File::open(path).map_err(|e| Error::io(path, e))?;
-    let mut hasher = blake3::Hasher::new();
-    let mut buf = vec![0u8; 4 << 20];
-    loop {
-        let n = read_full(&mut file, &mut buf).map_err(|e| Error::io(path, e))?;
-        if n == 0 {
-            break;
-        }
-        hasher.update_rayon(&buf[..n]);
-    }
     Ok(OperandId {
         path: path.to_path_buf(),
         size,
         mtime_ns,
-        blake3: hasher.finalize().to_hex().to_string(),
+        blake3: operand.content_hash().to_hex().to_string(),
     })
-}
-
-fn read_full(file: &mut File, buf: &mut [u8]) -> std::io::Result<usize> {
-    let mut done = 0;
-    while done < buf.len() {
-        match file.read(&mut buf[done..]) {
-            Ok(0) => break,
-            Ok(n) => done += n,
-            Err(e) if e.kind() == std::io::ErrorKind::Interrupted => continue,
-            Err(e) => return Err(e),
-        }
-    }
-    Ok(done)
 }
 
 /// What a run computes: written at its start, compared on every resume.
@@ -185,20 +161,32 @@ impl StateDir {
     }
 }
 
+/// An I/O error on a state file; a full disk says so, with the fix.
+fn state_io(path: &Path, e: std::io::Error) -> Error {
+    if e.raw_os_error() == Some(libc::ENOSPC) {
+        Error::Resources {
+            what: format!("{}: the disk is full", path.display()),
+            fix: "free space there".into(),
+        }
+    } else {
+        Error::io(path, e)
+    }
+}
+
 /// Writes `bytes` as `dir/name` so that a crash leaves the old file or the
 /// new one: temporary file, fsync, rename over, fsync of the directory.
 fn replace_atomically(dir: &Path, name: &str, bytes: &[u8]) -> Result<()> {
     let tmp = dir.join(format!(".{name}.new"));
     let target = dir.join(name);
     {
-        let f = File::create(&tmp).map_err(|e| Error::io(&tmp, e))?;
-        f.write_all_at(bytes, 0).map_err(|e| Error::io(&tmp, e))?;
-        f.sync_all().map_err(|e| Error::io(&tmp, e))?;
+        let f = File::create(&tmp).map_err(|e| state_io(&tmp, e))?;
+        f.write_all_at(bytes, 0).map_err(|e| state_io(&tmp, e))?;
+        f.sync_all().map_err(|e| state_io(&tmp, e))?;
     }
-    std::fs::rename(&tmp, &target).map_err(|e| Error::io(&target, e))?;
+    std::fs::rename(&tmp, &target).map_err(|e| state_io(&target, e))?;
     File::open(dir)
         .and_then(|d| d.sync_all())
-        .map_err(|e| Error::io(dir, e))
+        .map_err(|e| state_io(dir, e))
 }
 
 /// One completed block.
@@ -277,10 +265,10 @@ impl Journal {
             .create(true)
             .truncate(false)
             .open(path)
-            .map_err(|e| Error::io(path, e))?;
+            .map_err(|e| state_io(path, e))?;
         let mut bytes = Vec::new();
         file.read_to_end(&mut bytes)
-            .map_err(|e| Error::io(path, e))?;
+            .map_err(|e| state_io(path, e))?;
         let mut load = JournalLoad::default();
         let mut good = 0usize;
         for chunk in bytes.chunks(RECORD_BYTES) {
@@ -315,7 +303,7 @@ impl Journal {
         let mut g = self.file.lock().unwrap();
         let at = g.1;
         g.0.write_all_at(&r.encode(), at)
-            .map_err(|e| Error::io(&self.path, e))?;
+            .map_err(|e| state_io(&self.path, e))?;
         g.1 = at + RECORD_BYTES as u64;
         Ok(())
     }
@@ -323,7 +311,7 @@ impl Journal {
     /// Makes the records appended so far durable.
     pub fn sync(&self) -> Result<()> {
         let g = self.file.lock().unwrap();
-        g.0.sync_data().map_err(|e| Error::io(&self.path, e))
+        g.0.sync_data().map_err(|e| state_io(&self.path, e))
     }
 
     /// Replaces the journal by `records`, atomically.
@@ -344,7 +332,7 @@ impl Journal {
             .read(true)
             .write(true)
             .open(&self.path)
-            .map_err(|e| Error::io(&self.path, e))?;
+            .map_err(|e| state_io(&self.path, e))?;
         *self.file.lock().unwrap() = (file, bytes.len() as u64);
         Ok(())
     }
@@ -421,10 +409,13 @@ mod tests {
     #[test]
     fn identify_hashes_the_whole_file() {
         let dir = tempfile::tempdir().unwrap();
-        let p = dir.path().join("x");
-        let data: Vec<u8> = (0..(9 << 20)).map(|i| (i % 251) as u8).collect();
+        let p = dir.path().join("x.txt");
+        let mut data: Vec<u8> = (0..(9 << 20)).map(|i| b'0' + (i % 10) as u8).collect();
+        data[0] = b'7';
+        data.push(b'\n');
         std::fs::write(&p, &data).unwrap();
-        let id = identify(&p).unwrap();
+        let op = crate::format::Operand::open(&p, None).unwrap();
+        let id = identify(&p, &op).unwrap();
         assert_eq!(id.size, data.len() as u64);
         assert_eq!(id.blake3, blake3::hash(&data).to_hex().to_string());
     }

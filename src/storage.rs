@@ -35,6 +35,12 @@ pub trait Store: Sync {
     fn sync(&self) -> Result<()> {
         Ok(())
     }
+
+    /// Gives up the contents (a scratch file is truncated, its pages
+    /// dropped unwritten); nothing may be read from the store afterwards.
+    fn discard(&self) -> Result<()> {
+        Ok(())
+    }
 }
 
 impl<S: Store + ?Sized> Store for Box<S> {
@@ -56,6 +62,10 @@ impl<S: Store + ?Sized> Store for Box<S> {
 
     fn sync(&self) -> Result<()> {
         (**self).sync()
+    }
+
+    fn discard(&self) -> Result<()> {
+        (**self).discard()
     }
 }
 

@@ -437,6 +437,22 @@ impl Operand {
         }
     }
 
+    /// The BLAKE3 of the whole file, hashed on all threads window by
+    /// window, each window's pages released from the process afterwards
+    /// (so that hashing a file larger than the memory budget stays within
+    /// it).
+    pub fn content_hash(&self) -> blake3::Hash {
+        const WINDOW: usize = 8 << 20;
+        let bytes = self.data.bytes();
+        let mut hasher = blake3::Hasher::new();
+        for start in (0..bytes.len()).step_by(WINDOW) {
+            let end = (start + WINDOW).min(bytes.len());
+            hasher.update_rayon(&bytes[start..end]);
+            release_bytes(&self.data, start, end - start);
+        }
+        hasher.finalize()
+    }
+
     /// Starts reading the bytes behind limbs `first..first + n` into the
     /// page cache in the background, without mapping them into this process
     /// (so they do not count against its memory): read-ahead for the strided
