@@ -14,7 +14,8 @@
 #   OOC_THREADS (default: all cores), OOC_SKIP_RAM=1 (out-of-core run only,
 #   for operands whose in-memory plan does not fit this machine),
 #   OOC_CHECKPOINT_COST=0 (skip the second out-of-core run without
-#   checkpoints that measures their cost).
+#   checkpoints that measures their cost), OOC_PAIRS=N (N more alternating
+#   runs with and without checkpoints, for a steadier figure).
 # Also samples the scratch file system's disk use during the out-of-core
 # run and checks its product with `vastmul check`.
 # Disk: two operands of DIGITS bytes, two products of 2*DIGITS bytes, and
@@ -26,6 +27,7 @@ budget=${2:-256MiB}
 dir=${OOC_DIR:-target/ooc}
 threads=${OOC_THREADS:-$(nproc)}
 mkdir -p "$dir/scratch"
+rm -f "$dir"/pair-*.time
 cargo build --release --quiet
 v=target/release/vastmul
 [ -x /usr/bin/time ] || { echo "needs GNU time at /usr/bin/time (apt-get install time)"; exit 2; }
@@ -78,10 +80,21 @@ run "out-of-core-$budget" "$dir/product-ooc.txt" --memory "$budget" --scratch "$
 kill "$sampler" 2>/dev/null || true
 # The same out-of-core run keeping no resumable state: what checkpoints
 # (hashing every block, the journal, syncs, hashing the operands) cost.
+# The machine is shared and noisy: OOC_PAIRS=N more checkpointed and plain
+# runs alternate, and the cost is the ratio of the summed wall times.
+pairs=${OOC_PAIRS:-0}
 if [ "${OOC_CHECKPOINT_COST:-1}" = 1 ]; then
   run "out-of-core-$budget-no-checkpoint" "$dir/product-nock.txt" --memory "$budget" --scratch "$dir/scratch" --no-checkpoint
   cmp -s "$dir/product-ooc.txt" "$dir/product-nock.txt" || { echo "checkpointed and plain products differ"; exit 1; }
   rm -f "$dir/product-nock.txt"
+  for i in $(seq 1 "$pairs"); do
+    for mode in ck nock; do
+      extra=(); [ $mode = nock ] && extra=(--no-checkpoint)
+      rm -f "$dir/pair.txt"
+      /usr/bin/time -f "%e" -o "$dir/pair-$mode-$i.time" "$v" mul "$a" "$b" -o "$dir/pair.txt" --threads "$threads" --memory "$budget" --scratch "$dir/scratch" "${extra[@]}" 2>/dev/null
+    done
+  done
+  rm -f "$dir/pair.txt"
 fi
 peak=$(cat "$dir/disk-peak" 2>/dev/null || echo "$base")
 python3 - "$dir/plan.json" "$base" "$peak" <<'PY'
@@ -101,10 +114,15 @@ def wall(label):
         if "Elapsed (wall clock)" in line:
             parts = [float(x) for x in line.split()[-1].split(":")]
             return sum(p * 60 ** i for i, p in enumerate(reversed(parts)))
+import glob
 try:
-    w, n = wall(f"out-of-core-{budget}"), wall(f"out-of-core-{budget}-no-checkpoint")
-    print(f"\n- checkpoint cost: {w:.2f} s with checkpoints, {n:.2f} s without: "
-          f"{100 * (w / n - 1):+.1f}% of wall time")
+    w, n = [wall(f"out-of-core-{budget}")], [wall(f"out-of-core-{budget}-no-checkpoint")]
+    for path in sorted(glob.glob(f"{d}/pair-ck-*.time")):
+        w.append(float(open(path).read().split()[-1]))
+        n.append(float(open(path.replace("-ck-", "-nock-")).read().split()[-1]))
+    print(f"\n- checkpoint cost: {len(w)} run(s) each, alternating; with checkpoints "
+          f"{', '.join(f'{x:.2f}' for x in w)} s, without {', '.join(f'{x:.2f}' for x in n)} s: "
+          f"{100 * (sum(w) / sum(n) - 1):+.1f}% of wall time")
 except (FileNotFoundError, TypeError):
     pass
 PY
