@@ -1,26 +1,60 @@
-//! `vastmul check A B C`: verifies `C = A * B` from the files alone by
-//! residues modulo the Mersenne prime 2^61 - 1, streaming each file once in
-//! released windows (so files larger than RAM are fine) and in parallel.
+//! `vastmul check A B C`: verifies `C = A * B` (or `C = A^2`) from the
+//! files alone by residues modulo several primes, streaming each file once
+//! in released windows (so files larger than RAM are fine) and in parallel.
 //!
-//! Residues do not depend on the radix, so a decimal product can be checked
-//! against hexadecimal operands. With one 61-bit modulus a wrong product
-//! passes only if the error is a multiple of 2^61 - 1.
+//! The moduli are the fixed ones of [`crate::residue::FIXED_MODULI`] and
+//! `random` primes drawn from a seed that the report prints, so that anyone
+//! can rerun exactly the same check. See [`crate::residue`] for the chance
+//! that a wrong product passes.
 
-use crate::engine::LimbSource;
 use crate::format::{Format, Operand};
-use crate::residue::{mul_m61, residue_m61, MERSENNE_61};
+use crate::residue::{mul_mod, random_moduli, residues, signed, FIXED_MODULI};
+use crate::storage::LimbSource;
 use crate::{Error, Result};
 use serde::Serialize;
-use std::path::Path;
+use std::path::{Path, PathBuf};
+
+/// What to check.
+#[derive(Clone, Debug)]
+pub struct CheckRequest {
+    /// The first factor.
+    pub a: PathBuf,
+    /// The second factor, or `None` for a square of `a`.
+    pub b: Option<PathBuf>,
+    /// The product.
+    pub c: PathBuf,
+    /// Format of all files, or `None` to detect each one's.
+    pub format: Option<Format>,
+    /// Seed of the random moduli (`None`: drawn from the clock).
+    pub seed: Option<u64>,
+    /// How many random moduli.
+    pub random: usize,
+}
+
+/// One modulus's verdict.
+#[derive(Clone, Debug, Serialize)]
+pub struct ModulusCheck {
+    /// The prime.
+    pub modulus: u64,
+    /// `fixed` or `random`.
+    pub kind: &'static str,
+    /// Signed residues of A, B (A again for a square) and C.
+    pub residues: [u64; 3],
+    /// True when `res(A) * res(B) = res(C)`.
+    pub passed: bool,
+}
 
 /// The outcome of a check.
 #[derive(Clone, Debug, Serialize)]
 pub struct CheckReport {
-    /// The modulus, 2^61 - 1.
-    pub modulus: u64,
-    /// Signed residues of A, B and C in `[0, modulus)`.
-    pub residues: [u64; 3],
-    /// True when `res(A) * res(B) = res(C)`.
+    /// The seed the random moduli came from (pass it as `--seed` to repeat
+    /// the check exactly).
+    pub seed: u64,
+    /// A square was checked.
+    pub square: bool,
+    /// Every modulus, fixed ones first.
+    pub moduli: Vec<ModulusCheck>,
+    /// True when every modulus passed.
     pub passed: bool,
 }
 
@@ -34,40 +68,88 @@ impl LimbSource for Streamed<'_> {
     }
 }
 
-/// The residue of an operand with its sign: `-x` maps to `q - x`.
-fn signed_residue(op: &Operand) -> u64 {
-    let r = residue_m61(&Streamed(op), op.limb_count(), op.radix());
-    if op.is_negative() && r != 0 {
-        MERSENNE_61 - r
-    } else {
-        r
-    }
+/// The signed residues of an operand file modulo each of `moduli`.
+fn file_residues(path: &Path, format: Option<Format>, moduli: &[u64]) -> Result<Vec<u64>> {
+    let op = Operand::open(path, format)?;
+    let r = residues(&Streamed(&op), op.limb_count(), op.radix(), moduli);
+    Ok(r.iter()
+        .zip(moduli)
+        .map(|(&x, &p)| signed(x, op.is_negative(), p))
+        .collect())
 }
 
-/// Checks `c = a * b` by residues; a mismatch is an [`Error::Verify`].
-pub fn check_files(a: &Path, b: &Path, c: &Path, format: Option<Format>) -> Result<CheckReport> {
-    let mut residues = [0u64; 3];
-    for (r, path) in residues.iter_mut().zip([a, b, c]) {
-        *r = signed_residue(&Operand::open(path, format)?);
-    }
-    let passed = mul_m61(residues[0], residues[1]) == residues[2];
+/// A seed from the clock and the process, for a check without `--seed`.
+fn fresh_seed() -> u64 {
+    let t = std::time::SystemTime::now()
+        .duration_since(std::time::UNIX_EPOCH)
+        .map_or(0, |d| d.as_nanos() as u64);
+    t ^ (std::process::id() as u64).rotate_left(32)
+}
+
+/// Checks the product; a mismatch is an [`Error::Verify`] naming the
+/// moduli that failed and the seed.
+pub fn check(req: &CheckRequest) -> Result<CheckReport> {
+    let seed = req.seed.unwrap_or_else(fresh_seed);
+    let mut moduli = FIXED_MODULI.to_vec();
+    moduli.extend(random_moduli(seed, req.random));
+    let ra = file_residues(&req.a, req.format, &moduli)?;
+    let rb = match &req.b {
+        Some(b) => file_residues(b, req.format, &moduli)?,
+        None => ra.clone(),
+    };
+    let rc = file_residues(&req.c, req.format, &moduli)?;
+    let checks: Vec<ModulusCheck> = moduli
+        .iter()
+        .enumerate()
+        .map(|(i, &p)| ModulusCheck {
+            modulus: p,
+            kind: if i < FIXED_MODULI.len() {
+                "fixed"
+            } else {
+                "random"
+            },
+            residues: [ra[i], rb[i], rc[i]],
+            passed: mul_mod(ra[i], rb[i], p) == rc[i],
+        })
+        .collect();
+    let passed = checks.iter().all(|m| m.passed);
     let report = CheckReport {
-        modulus: MERSENNE_61,
-        residues,
+        seed,
+        square: req.b.is_none(),
+        moduli: checks,
         passed,
     };
     if !passed {
+        let failed: Vec<String> = report
+            .moduli
+            .iter()
+            .filter(|m| !m.passed)
+            .map(|m| format!("{} ({})", m.modulus, m.kind))
+            .collect();
+        let what = match &req.b {
+            Some(b) => format!("{} x {}", req.a.display(), b.display()),
+            None => format!("the square of {}", req.a.display()),
+        };
         return Err(Error::Verify {
             what: format!(
-                "{} is not {} x {}: residues modulo 2^61-1 are {:#x} x {:#x} != {:#x}",
-                c.display(),
-                a.display(),
-                b.display(),
-                residues[0],
-                residues[1],
-                residues[2]
+                "{} is not {what}: the residues differ modulo {} of {} primes (seed {seed})",
+                req.c.display(),
+                failed.join(", "),
+                report.moduli.len()
             ),
         });
     }
     Ok(report)
+}
+
+/// [`check`] of `c = a * b` with the default of two random moduli.
+pub fn check_files(a: &Path, b: &Path, c: &Path, format: Option<Format>) -> Result<CheckReport> {
+    check(&CheckRequest {
+        a: a.to_path_buf(),
+        b: Some(b.to_path_buf()),
+        c: c.to_path_buf(),
+        format,
+        seed: None,
+        random: 2,
+    })
 }

@@ -155,17 +155,27 @@ enum Command {
         #[arg(long)]
         json: bool,
     },
-    /// Check C = A x B from the files alone, by residues modulo 2^61 - 1.
+    /// Check C = A x B (or C = A^2) from the files alone, by residues
+    /// modulo three fixed primes and random ones.
     #[command(
-        after_help = "Example:\n  vastmul check a.txt b.txt c.txt\nExit code 0 when the check passes, 6 when it fails."
+        after_help = "Examples:\n  vastmul check a.txt b.txt c.txt\n  vastmul check --square a.txt c.txt --seed 12345\nExit code 0 when the check passes, 6 when it fails."
     )]
     Check {
-        /// First factor.
-        a: PathBuf,
-        /// Second factor.
-        b: PathBuf,
-        /// The product to check.
-        c: PathBuf,
+        /// A B C, or A C with --square.
+        #[arg(num_args = 2..=3, required = true)]
+        files: Vec<PathBuf>,
+        /// Check C = A^2 (two files: A C).
+        #[arg(long)]
+        square: bool,
+        /// Seed of the random moduli (printed by every check; repeats it).
+        #[arg(long)]
+        seed: Option<u64>,
+        /// How many random moduli, besides the three fixed ones.
+        #[arg(long, default_value_t = 2)]
+        random: usize,
+        /// Print the report as JSON.
+        #[arg(long)]
+        json: bool,
         /// Format of all three files (default: detected for each).
         #[arg(long, value_enum)]
         in_format: Option<FormatArg>,
@@ -255,15 +265,10 @@ fn run(cli: Cli) -> Result<(), Error> {
                 r.mul.product_limbs
             );
             println!(
-                "  residues mod 2^61-1: east {:#x}, west {:#x}, product {:#x}",
-                r.residues[0], r.residues[1], r.residues[2]
+                "  check: east x west = product modulo {} primes (seed {}): OK",
+                r.check.moduli.len(),
+                r.check.seed
             );
-            if !r.verified {
-                return Err(Error::Verify {
-                    what: "demo product residue does not match its factors".into(),
-                });
-            }
-            println!("  check: east x west = product modulo 2^61-1: OK");
             if temporary && !keep {
                 std::fs::remove_dir_all(&dir).map_err(|e| Error::io(&dir, e))?;
                 println!(
@@ -361,18 +366,60 @@ fn run(cli: Cli) -> Result<(), Error> {
             }
         }
         Command::Check {
-            a,
-            b,
-            c,
+            files,
+            square,
+            seed,
+            random,
+            json,
             in_format,
             threads,
         } => {
             set_threads(threads)?;
-            let r = vastmul::check::check_files(&a, &b, &c, in_format.map(Into::into))?;
-            println!(
-                "check passed: residues modulo 2^61-1: {:#x} x {:#x} = {:#x}",
-                r.residues[0], r.residues[1], r.residues[2]
-            );
+            let (a, b, c) = match (square, files.as_slice()) {
+                (false, [a, b, c]) => (a.clone(), Some(b.clone()), c.clone()),
+                (true, [a, c]) => (a.clone(), None, c.clone()),
+                (false, _) => {
+                    return Err(Error::usage(
+                        "check needs three files: A B C",
+                        "pass the two factors and the product, or --square A C",
+                    ))
+                }
+                (true, _) => {
+                    return Err(Error::usage(
+                        "check --square needs two files: A C",
+                        "pass the operand and its square, or drop --square for A B C",
+                    ))
+                }
+            };
+            let r = vastmul::check::check(&vastmul::check::CheckRequest {
+                a,
+                b,
+                c,
+                format: in_format.map(Into::into),
+                seed,
+                random,
+            })?;
+            if json {
+                println!(
+                    "{}",
+                    serde_json::to_string_pretty(&r).expect("reports serialize")
+                );
+            } else {
+                for m in &r.moduli {
+                    println!(
+                        "modulus {:>19} ({:6}): {:#018x} x {:#018x} = {:#018x}  pass",
+                        m.modulus, m.kind, m.residues[0], m.residues[1], m.residues[2]
+                    );
+                }
+                println!(
+                    "check passed: {} moduli, {} fixed and {} random (seed {}; --seed {} repeats this check)",
+                    r.moduli.len(),
+                    r.moduli.len() - random,
+                    random,
+                    r.seed,
+                    r.seed
+                );
+            }
         }
         Command::Plan {
             a,

@@ -1,78 +1,225 @@
-//! Residues of operands modulo the Mersenne prime `q = 2^61 - 1`, taken from
-//! the limbs in their own radix (`value = sum limb_i * base^i`). Because
-//! each limb is weighted by its position, swapped or shifted blocks change
-//! the residue, unlike a digit sum.
+//! Residues of operands modulo several primes, taken from the limbs in their
+//! own radix (`value = sum limb_i * base^i`), streaming and in parallel.
+//!
+//! Each chunk of limbs is reduced on its own by Horner's rule from its top
+//! limb; the chunk residues are then combined with powers of the base. The
+//! position of every limb enters its weight, so swapped or shifted blocks
+//! change the residue, unlike a digit sum. Residues do not depend on the
+//! radix: a decimal product can be checked against hexadecimal operands.
+//!
+//! # Moduli
+//!
+//! Three fixed primes ([`FIXED_MODULI`]): 2^61 - 1 and the two largest
+//! primes below 2^62, checked by the tests with a deterministic
+//! Miller-Rabin test and a scan of the gap above them. Others are drawn at
+//! random from `[2^61, 2^62)` for each check, from a printed seed.
+//!
+//! # The chance of a false pass
+//!
+//! Let `C` be the true product and `C' != C` the file's value, both below
+//! `2^L`. A modulus `p` passes `C'` exactly when `p` divides `D = C' - C`,
+//! a non-zero integer with `|D| < 2^L`. Distinct primes `p >= 2^61` that
+//! divide `D` multiply to at most `|D|`, so at most `L / 61` of them divide
+//! it. The interval `[2^61, 2^62)` holds about `2^61 / ln(2^62) > 5 * 10^16`
+//! primes (prime number theorem; the count is common knowledge of the
+//! trade). A prime drawn uniformly from it therefore passes a wrong product
+//! with probability at most `(L / 61) / (5 * 10^16)`, whatever the error;
+//! `k` independent draws pass it with probability at most that to the power
+//! `k`. For a product of 10^10 decimal digits (`L` about 3.3 * 10^10) one
+//! draw gives at most 1.1 * 10^-8, two give 1.2 * 10^-16, three
+//! 1.4 * 10^-24. The fixed primes add no probability bound against an
+//! adversary (an error could be a multiple of them), but they catch any
+//! error that is not a multiple of their product, which covers every
+//! change confined to fewer than about 180 bits' worth of limbs.
 
-use crate::engine::LimbSource;
+use crate::arith::Modulus;
 use crate::radix::{Radix, DEC_BASE};
+use crate::storage::LimbSource;
 use rayon::prelude::*;
 
-/// The modulus, `2^61 - 1`, a Mersenne prime.
+/// The fixed moduli: 2^61 - 1 and the two largest primes below 2^62.
+pub const FIXED_MODULI: [u64; 3] = [(1 << 61) - 1, (1 << 62) - 57, (1 << 62) - 87];
+
+/// The Mersenne prime 2^61 - 1.
 pub const MERSENNE_61: u64 = (1 << 61) - 1;
 
-#[inline(always)]
-fn reduce(x: u128) -> u64 {
-    // 2^61 = 1 (mod q): fold the high bits onto the low ones twice.
-    let folded = (x as u64 & MERSENNE_61) as u128 + (x >> 61);
-    let r = (folded as u64 & MERSENNE_61) + (folded >> 61) as u64;
-    if r >= MERSENNE_61 {
-        r - MERSENNE_61
+/// Limbs per parallel chunk.
+const CHUNK: usize = 1 << 16;
+
+/// One modulus with the constants Horner's rule needs.
+#[derive(Clone, Copy, Debug)]
+struct Horner {
+    m: Modulus,
+    /// `base * 2^64 mod p`: a Montgomery product with it multiplies by the
+    /// base and leaves plain values plain.
+    base_mont: u64,
+}
+
+impl Horner {
+    fn new(p: u64, radix: Radix) -> Self {
+        let m = Modulus::new(p);
+        let base = match radix {
+            Radix::Binary => ((1u128 << 64) % p as u128) as u64,
+            Radix::Decimal => DEC_BASE % p,
+        };
+        Horner {
+            m,
+            base_mont: m.to_mont(base),
+        }
+    }
+
+    /// `r * base + limb mod p` for `r < p`.
+    #[inline(always)]
+    fn step(&self, r: u64, limb: u64) -> u64 {
+        // mont_mul(r, base * 2^64) = r * base, below p; the limb is reduced
+        // to [0, 2p), so the sum stays below 3p < 2^64.
+        let s = self.m.mont_mul(r, self.base_mont) + self.m.reduce_lazy(limb);
+        self.m.reduce_2p(if s >= self.m.two_p {
+            s - self.m.two_p
+        } else {
+            s
+        })
+    }
+}
+
+/// `x^e mod p`.
+fn pow(m: &Modulus, x: u64, e: u64) -> u64 {
+    m.pow(x, e)
+}
+
+/// The residues modulo each of `moduli` (odd primes below 2^62) of the
+/// magnitude whose `len` limbs `src` supplies.
+pub fn residues<S: LimbSource + ?Sized>(
+    src: &S,
+    len: usize,
+    radix: Radix,
+    moduli: &[u64],
+) -> Vec<u64> {
+    let h: Vec<Horner> = moduli.iter().map(|&p| Horner::new(p, radix)).collect();
+    let chunks = len.div_ceil(CHUNK);
+    // Residue of each chunk on its own, every modulus in the same sweep
+    // (independent chains, so the multiplications overlap).
+    let parts: Vec<Vec<u64>> = (0..chunks)
+        .into_par_iter()
+        .map_init(
+            || vec![0u64; CHUNK],
+            |buf, c| {
+                let first = c * CHUNK;
+                let buf = &mut buf[..CHUNK.min(len - first)];
+                src.fill_limbs(first, buf);
+                chunk_residues(&h, buf)
+            },
+        )
+        .collect();
+    h.iter()
+        .enumerate()
+        .map(|(i, hm)| {
+            let base = hm.m.mont_mul(hm.base_mont, 1); // base mod p
+            let shift = pow(&hm.m, base, CHUNK as u64);
+            parts
+                .iter()
+                .rev()
+                .fold(0u64, |r, part| hm.m.add(hm.m.mul(r, shift), part[i]))
+        })
+        .collect()
+}
+
+/// Horner's rule over `limbs` from the top, for every modulus.
+fn chunk_residues(h: &[Horner], limbs: &[u64]) -> Vec<u64> {
+    match h {
+        [a, b, c] => {
+            let (mut x, mut y, mut z) = (0, 0, 0);
+            for &l in limbs.iter().rev() {
+                x = a.step(x, l);
+                y = b.step(y, l);
+                z = c.step(z, l);
+            }
+            vec![x, y, z]
+        }
+        _ => h
+            .iter()
+            .map(|hm| limbs.iter().rev().fold(0u64, |r, &l| hm.step(r, l)))
+            .collect(),
+    }
+}
+
+/// The residue of a signed value from that of its magnitude.
+pub fn signed(r: u64, negative: bool, p: u64) -> u64 {
+    if negative && r != 0 {
+        p - r
     } else {
         r
     }
 }
 
-fn mul(a: u64, b: u64) -> u64 {
-    reduce(a as u128 * b as u128)
+/// `a * b mod p`.
+pub fn mul_mod(a: u64, b: u64, p: u64) -> u64 {
+    ((a as u128 * b as u128) % p as u128) as u64
 }
 
-fn pow(mut b: u64, mut e: u64) -> u64 {
-    let mut r = 1;
-    while e > 0 {
-        if e & 1 == 1 {
-            r = mul(r, b);
+/// Deterministic Miller-Rabin for 64-bit integers: the first twelve primes
+/// as bases are enough below 3.3 * 10^24 (common practice).
+pub fn is_prime(n: u64) -> bool {
+    if n < 2 {
+        return false;
+    }
+    const BASES: [u64; 12] = [2, 3, 5, 7, 11, 13, 17, 19, 23, 29, 31, 37];
+    for p in BASES {
+        if n % p == 0 {
+            return n == p;
         }
-        b = mul(b, b);
-        e >>= 1;
     }
-    r
-}
-
-/// `base mod q` for a radix.
-fn base(radix: Radix) -> u64 {
-    match radix {
-        Radix::Binary => reduce(1u128 << 64),
-        Radix::Decimal => DEC_BASE % MERSENNE_61,
+    let s = (n - 1).trailing_zeros();
+    let d = (n - 1) >> s;
+    let powm = |mut b: u64, mut e: u64| {
+        let mut r = 1u64;
+        while e > 0 {
+            if e & 1 == 1 {
+                r = mul_mod(r, b, n);
+            }
+            b = mul_mod(b, b, n);
+            e >>= 1;
+        }
+        r
+    };
+    'bases: for a in BASES {
+        let mut x = powm(a, d);
+        if x == 1 || x == n - 1 {
+            continue;
+        }
+        for _ in 1..s {
+            x = mul_mod(x, x, n);
+            if x == n - 1 {
+                continue 'bases;
+            }
+        }
+        return false;
     }
+    true
 }
 
-/// The residue modulo 2^61 - 1 of the magnitude whose `len` limbs `src`
-/// supplies, computed in parallel chunks combined by powers of the base.
-pub fn residue_m61<S: LimbSource + ?Sized>(src: &S, len: usize, radix: Radix) -> u64 {
-    const CHUNK: usize = 1 << 16;
-    let b = base(radix);
-    let chunks = len.div_ceil(CHUNK);
-    let shift = pow(b, CHUNK as u64);
-    // Residue of each chunk on its own (Horner from its top limb).
-    let parts: Vec<u64> = (0..chunks)
-        .into_par_iter()
-        .map(|c| {
-            let first = c * CHUNK;
-            let mut buf = vec![0u64; CHUNK.min(len - first)];
-            src.fill_limbs(first, &mut buf);
-            buf.iter().rev().fold(0u64, |r, &limb| {
-                reduce(r as u128 * b as u128 + limb as u128)
-            })
-        })
-        .collect();
-    parts.iter().rev().fold(0u64, |r, &part| {
-        reduce(r as u128 * shift as u128 + part as u128)
-    })
-}
-
-/// `a * b mod q`, for comparing the residues of a product with its factors.
-pub fn mul_m61(a: u64, b: u64) -> u64 {
-    mul(a, b)
+/// `count` primes drawn uniformly from `[2^61, 2^62)`, reproducibly from
+/// `seed`, distinct from each other and from the fixed moduli.
+pub fn random_moduli(seed: u64, count: usize) -> Vec<u64> {
+    let mut state = seed;
+    let mut next = move || {
+        // SplitMix64: a full-period generator; each seed gives one stream.
+        state = state.wrapping_add(0x9e37_79b9_7f4a_7c15);
+        let mut z = state;
+        z = (z ^ (z >> 30)).wrapping_mul(0xbf58_476d_1ce4_e5b9);
+        z = (z ^ (z >> 27)).wrapping_mul(0x94d0_49bb_1331_11eb);
+        z ^ (z >> 31)
+    };
+    let mut out: Vec<u64> = Vec::with_capacity(count);
+    while out.len() < count {
+        // Uniform over the interval's odd numbers; primes among them are
+        // then uniform too.
+        let candidate = (1u64 << 61) | (next() >> 3) | 1;
+        if is_prime(candidate) && !out.contains(&candidate) && !FIXED_MODULI.contains(&candidate) {
+            out.push(candidate);
+        }
+    }
+    out
 }
 
 #[cfg(test)]
@@ -80,30 +227,101 @@ mod tests {
     use super::*;
     use num_bigint::BigUint;
 
+    /// Horner's rule with plain 128-bit remainders: slow, but independent
+    /// of the Montgomery arithmetic under test.
+    fn reference(limbs: &[u64], radix: Radix, p: u64) -> u64 {
+        let base = match radix {
+            Radix::Binary => ((1u128 << 64) % p as u128) as u64,
+            Radix::Decimal => DEC_BASE % p,
+        };
+        limbs.iter().rev().fold(0u64, |r, &l| {
+            ((r as u128 * base as u128 + l as u128) % p as u128) as u64
+        })
+    }
+
     #[test]
-    fn matches_big_integer_remainder_in_both_radixes() {
-        let limbs: Vec<u64> = (0..200_000u64)
-            .map(|i| i.wrapping_mul(0x9e37_79b9_7f4a_7c15) % DEC_BASE)
+    fn the_reference_matches_num_bigint() {
+        let limbs: Vec<u64> = (1..300u64)
+            .map(|i| i.wrapping_mul(0x9e37_79b9_7f4a_7c15))
             .collect();
-        let q = BigUint::from(MERSENNE_61);
-        let bin = BigUint::from_slice(
+        let v = BigUint::from_slice(
             &limbs
                 .iter()
                 .flat_map(|w| [*w as u32, (w >> 32) as u32])
                 .collect::<Vec<_>>(),
         );
-        assert_eq!(
-            BigUint::from(residue_m61(limbs.as_slice(), limbs.len(), Radix::Binary)),
-            &bin % &q
-        );
-        let small = &limbs[..50];
-        let dec = small.iter().rev().fold(BigUint::from(0u32), |acc, &l| {
-            acc * BigUint::from(DEC_BASE) + BigUint::from(l)
-        });
-        assert_eq!(
-            BigUint::from(residue_m61(small, small.len(), Radix::Decimal)),
-            dec % &q
-        );
+        for p in FIXED_MODULI {
+            let r: u64 = (&v % BigUint::from(p)).try_into().unwrap();
+            assert_eq!(reference(&limbs, Radix::Binary, p), r);
+        }
+    }
+
+    #[test]
+    fn matches_big_integer_remainders_in_both_radixes_across_chunks() {
+        for radix in [Radix::Binary, Radix::Decimal] {
+            for len in [0usize, 1, 2, CHUNK - 1, CHUNK, CHUNK + 1, 3 * CHUNK + 17] {
+                let limbs: Vec<u64> = (0..len as u64)
+                    .map(|i| i.wrapping_mul(0x9e37_79b9_7f4a_7c15) % radix.max_limb())
+                    .collect();
+                let mut moduli = FIXED_MODULI.to_vec();
+                moduli.extend(random_moduli(len as u64, 2));
+                let got = residues(limbs.as_slice(), len, radix, &moduli);
+                for (&p, &r) in moduli.iter().zip(&got) {
+                    assert_eq!(r, reference(&limbs, radix, p), "{radix:?} {len} mod {p}");
+                }
+                // one modulus alone takes the general path
+                let one = residues(limbs.as_slice(), len, radix, &moduli[..1]);
+                assert_eq!(one[0], got[0]);
+            }
+        }
+    }
+
+    #[test]
+    fn maximal_limbs_reduce_correctly() {
+        for radix in [Radix::Binary, Radix::Decimal] {
+            let limbs = vec![radix.max_limb(); 1000];
+            let got = residues(limbs.as_slice(), 1000, radix, &FIXED_MODULI);
+            for (&p, &r) in FIXED_MODULI.iter().zip(&got) {
+                assert_eq!(r, reference(&limbs, radix, p));
+            }
+        }
+    }
+
+    #[test]
+    fn fixed_moduli_are_the_primes_claimed() {
+        assert!(FIXED_MODULI.iter().all(|&p| is_prime(p)));
+        // 2^62 - 57 and 2^62 - 87 are the two largest primes below 2^62:
+        // nothing between them and 2^62 is prime.
+        let top = 1u64 << 62;
+        let between: Vec<u64> = ((top - 87 + 1)..top).filter(|&n| is_prime(n)).collect();
+        assert_eq!(between, vec![top - 57]);
+    }
+
+    #[test]
+    fn miller_rabin_agrees_with_trial_division_and_known_cases() {
+        let trial = |n: u64| n >= 2 && (2..).take_while(|d| d * d <= n).all(|d| n % d != 0);
+        for n in 0..20_000u64 {
+            assert_eq!(is_prime(n), trial(n), "{n}");
+        }
+        // Carmichael numbers and a strong pseudoprime to bases 2, 3, 5, 7.
+        for n in [561u64, 1105, 1729, 2465, 3215031751] {
+            assert!(!is_prime(n), "{n}");
+        }
+        assert!(is_prime((1 << 61) - 1));
+        assert!(!is_prime((1 << 61) + 1));
+    }
+
+    #[test]
+    fn random_moduli_are_reproducible_distinct_primes_in_range() {
+        let a = random_moduli(42, 4);
+        assert_eq!(a, random_moduli(42, 4));
+        assert_ne!(a, random_moduli(43, 4));
+        for &p in &a {
+            assert!(is_prime(p) && (1u64 << 61..1u64 << 62).contains(&p));
+        }
+        let mut d = a.clone();
+        d.dedup();
+        assert_eq!(d.len(), 4);
     }
 
     #[test]
@@ -111,8 +329,8 @@ mod tests {
         let a = [5u64, 7, 11];
         let b = [7u64, 5, 11];
         assert_ne!(
-            residue_m61(&a[..], 3, Radix::Binary),
-            residue_m61(&b[..], 3, Radix::Binary)
+            residues(&a[..], 3, Radix::Binary, &FIXED_MODULI),
+            residues(&b[..], 3, Radix::Binary, &FIXED_MODULI)
         );
     }
 }

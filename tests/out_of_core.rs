@@ -305,7 +305,10 @@ fn a_disk_that_fills_mid_run_keeps_the_state_and_the_rerun_completes() {
     let out = child.wait_with_output().unwrap();
     let err = String::from_utf8_lossy(&out.stderr);
     assert_eq!(out.status.code(), Some(5), "{err}");
-    assert!(err.contains("filled up") || err.contains("disk is full"), "{err}");
+    assert!(
+        err.contains("filled up") || err.contains("disk is full"),
+        "{err}"
+    );
     assert!(err.contains("kept in") && err.contains("resumes"), "{err}");
     assert!(!disk.0.join("c.txt").exists(), "a partial product at -o");
     // Free the space: the rerun verifies the saved state, skips every pass
