@@ -124,23 +124,34 @@ pub fn residues<S: LimbSource + ?Sized>(
         .collect()
 }
 
-/// Horner's rule over `limbs` from the top, for every modulus.
+/// Horner's rule over `limbs` from the top, for every modulus: up to five
+/// moduli at once in one sweep, so that their independent chains of
+/// multiplications overlap in the pipeline.
 fn chunk_residues(h: &[Horner], limbs: &[u64]) -> Vec<u64> {
-    match h {
-        [a, b, c] => {
-            let (mut x, mut y, mut z) = (0, 0, 0);
-            for &l in limbs.iter().rev() {
-                x = a.step(x, l);
-                y = b.step(y, l);
-                z = c.step(z, l);
-            }
-            vec![x, y, z]
+    let mut out = Vec::with_capacity(h.len());
+    for group in h.chunks(5) {
+        match group.len() {
+            1 => out.extend(horner_group::<1>(group, limbs)),
+            2 => out.extend(horner_group::<2>(group, limbs)),
+            3 => out.extend(horner_group::<3>(group, limbs)),
+            4 => out.extend(horner_group::<4>(group, limbs)),
+            _ => out.extend(horner_group::<5>(group, limbs)),
         }
-        _ => h
-            .iter()
-            .map(|hm| limbs.iter().rev().fold(0u64, |r, &l| hm.step(r, l)))
-            .collect(),
     }
+    out
+}
+
+/// [`chunk_residues`] for exactly `N` moduli.
+#[inline(always)]
+fn horner_group<const N: usize>(h: &[Horner], limbs: &[u64]) -> [u64; N] {
+    let h: &[Horner; N] = h.try_into().expect("a group of N moduli");
+    let mut r = [0u64; N];
+    for &l in limbs.iter().rev() {
+        for i in 0..N {
+            r[i] = h[i].step(r[i], l);
+        }
+    }
+    r
 }
 
 /// The residue of a signed value from that of its magnitude.
