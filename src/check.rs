@@ -78,18 +78,10 @@ fn file_residues(path: &Path, format: Option<Format>, moduli: &[u64]) -> Result<
         .collect())
 }
 
-/// A seed from the clock and the process, for a check without `--seed`.
-fn fresh_seed() -> u64 {
-    let t = std::time::SystemTime::now()
-        .duration_since(std::time::UNIX_EPOCH)
-        .map_or(0, |d| d.as_nanos() as u64);
-    t ^ (std::process::id() as u64).rotate_left(32)
-}
-
 /// Checks the product; a mismatch is an [`Error::Verify`] naming the
 /// moduli that failed and the seed.
 pub fn check(req: &CheckRequest) -> Result<CheckReport> {
-    let seed = req.seed.unwrap_or_else(fresh_seed);
+    let seed = req.seed.unwrap_or_else(crate::residue::fresh_seed);
     let mut moduli = FIXED_MODULI.to_vec();
     moduli.extend(random_moduli(seed, req.random));
     let ra = file_residues(&req.a, req.format, &moduli)?;

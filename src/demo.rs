@@ -54,6 +54,8 @@ pub fn run(dir: &Path, digits: u64, threads: usize, force: bool) -> Result<DemoR
         restart: false,
         keep_state: false,
         checkpoint: true,
+        self_check: true,
+        tamper: None,
         faults: None,
     })?;
     // A mismatch is an error: the demo fails loudly.

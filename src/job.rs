@@ -10,6 +10,7 @@ use crate::format::{
 use crate::ooc::{OutOfCore, Space};
 use crate::output::{ensure_distinct, AtomicOutput};
 use crate::plan::{self, Algorithm, Force, Plan, Request};
+use crate::residue::{mul_mod, residues, signed, ResidueTap};
 use crate::scratch::free_space;
 use crate::scratch::FileSpace;
 use crate::size::{default_budget, show_size};
@@ -51,9 +52,45 @@ pub struct MulOptions {
     /// Keep resumable state for out-of-core runs (the default); without it
     /// an interrupted run starts over (for measuring what checkpoints cost).
     pub checkpoint: bool,
+    /// Check the product against its factors by a residue before it is
+    /// written (the default).
+    pub self_check: bool,
+    /// Damage done to the product before the self-check (its tests only).
+    #[doc(hidden)]
+    pub tamper: Option<Tamper>,
     /// Injected scratch I/O faults (tests of the recovery paths only).
     #[doc(hidden)]
     pub faults: Option<std::sync::Arc<crate::faults::FaultPlan>>,
+}
+
+/// Damage to a computed product, for testing that the self-check sees it.
+#[doc(hidden)]
+#[derive(Clone, Copy, Debug, PartialEq)]
+pub enum Tamper {
+    /// Add one to the limb at this fraction of the product (0.0 = lowest).
+    ChangeLimb(f64),
+    /// Swap the limb at this fraction with its neighbour above.
+    SwapLimbs(f64),
+    /// Drop the top limb.
+    DropTop,
+    /// Append a limb 1 above the top.
+    AppendLimb,
+    /// Write the product with the other sign.
+    FlipSign,
+}
+
+/// The residue check of a product against its factors, made before the
+/// product is renamed into place.
+#[derive(Clone, Debug, Serialize)]
+pub struct SelfCheck {
+    /// The prime, drawn from `[2^61, 2^62)`.
+    pub modulus: u64,
+    /// The seed it was drawn from.
+    pub seed: u64,
+    /// Signed residues of A, B and the product.
+    pub residues: [u64; 3],
+    /// Seconds it took (the factors' residues and the product's).
+    pub seconds: f64,
 }
 
 /// What a multiplication did.
@@ -80,6 +117,8 @@ pub struct MulReport {
     pub resumed_at: Option<String>,
     /// What a resume found wrong in the saved state, and what it did.
     pub resume_notes: Vec<String>,
+    /// The self-check, unless it was turned off.
+    pub self_check: Option<SelfCheck>,
 }
 
 impl LimbSource for Operand {
@@ -555,6 +594,52 @@ pub fn multiply_files(opts: &MulOptions) -> Result<MulReport> {
     };
     let compute_seconds = compute.elapsed().as_secs_f64();
 
+    // The self-check: the factors' residues now, the product's from its
+    // limbs (in RAM) or as they are written (on disk).
+    let mut product = product;
+    let mut negative = negative;
+    if let Some(t) = opts.tamper {
+        tamper(&mut product, &mut negative, t)?;
+    }
+    let check_start = Instant::now();
+    let mut self_check = None;
+    let mut tap = None;
+    if opts.self_check {
+        let seed = crate::residue::fresh_seed();
+        let p = crate::residue::random_moduli(seed, 1)[0];
+        let residue_of = |op: &Operand| {
+            let r = if plan.release_inputs {
+                residues(&Released(op), op.limb_count(), radix, &[p])
+            } else {
+                residues(op, op.limb_count(), radix, &[p])
+            };
+            signed(r[0], op.is_negative(), p)
+        };
+        let ra = residue_of(a);
+        let rb = if ops.b.is_some() { residue_of(b) } else { ra };
+        let rc = match &product {
+            Product::Ram(limbs) => Some(residues(&limbs[..], limbs.len(), radix, &[p])[0]),
+            Product::Disk { .. } => {
+                tap = Some(ResidueTap::new(p, radix));
+                None
+            }
+        };
+        self_check = Some(SelfCheck {
+            modulus: p,
+            seed,
+            residues: [ra, rb, rc.unwrap_or(0)],
+            seconds: 0.0,
+        });
+        if let Some(rc) = rc {
+            verify_self_check(
+                self_check.as_mut().unwrap(),
+                rc,
+                negative && !product.is_empty(),
+            )?;
+        }
+    }
+    let mut check_seconds = check_start.elapsed().as_secs_f64();
+
     let write = Instant::now();
     let target = opts.output.clone();
     match &product {
@@ -574,7 +659,11 @@ pub fn multiply_files(opts: &MulOptions) -> Result<MulReport> {
                 }
                 store
                     .read(first, dst)
-                    .map_err(|e| std::io::Error::other(e.to_string()))
+                    .map_err(|e| std::io::Error::other(e.to_string()))?;
+                if let Some(t) = &tap {
+                    t.add(first, dst);
+                }
+                Ok(())
             },
         ),
     }
@@ -603,6 +692,14 @@ pub fn multiply_files(opts: &MulOptions) -> Result<MulReport> {
             },
         }
     })?;
+    if let (Some(t), Some(sc)) = (&tap, self_check.as_mut()) {
+        let t0 = Instant::now();
+        verify_self_check(sc, t.value(), negative && !product.is_empty())?;
+        check_seconds += t0.elapsed().as_secs_f64();
+    }
+    if let Some(sc) = self_check.as_mut() {
+        sc.seconds = check_seconds;
+    }
     out.commit()?;
     if let Some(st) = state {
         if !opts.keep_state {
@@ -624,5 +721,71 @@ pub fn multiply_files(opts: &MulOptions) -> Result<MulReport> {
         identify_seconds,
         resumed_at,
         resume_notes,
+        self_check,
     })
+}
+
+/// Compares the product's residue (of its magnitude) with its factors';
+/// a mismatch fails the run before anything is renamed into place.
+fn verify_self_check(sc: &mut SelfCheck, magnitude: u64, negative: bool) -> Result<()> {
+    let p = sc.modulus;
+    sc.residues[2] = signed(magnitude, negative, p);
+    let expected = mul_mod(sc.residues[0], sc.residues[1], p);
+    if sc.residues[2] == expected {
+        return Ok(());
+    }
+    Err(Error::Verify {
+        what: format!(
+            "self-check failed: modulo the prime {p} (seed {}) the product's residue is {:#x}, \
+             but its factors give {expected:#x}; the product was not written. This points at \
+             a fault of the machine (memory, disk) or of vastmul: rerun (with --restart for an \
+             out-of-core run) and please report it",
+            sc.seed, sc.residues[2]
+        ),
+    })
+}
+
+/// Applies test damage to a computed product.
+fn tamper(product: &mut Product, negative: &mut bool, t: Tamper) -> Result<()> {
+    let len = product.len();
+    let at = |f: f64| ((len.saturating_sub(1)) as f64 * f) as usize;
+    match (product, t) {
+        (_, Tamper::FlipSign) => *negative = !*negative,
+        (Product::Ram(w), Tamper::ChangeLimb(f)) => w[at(f)] ^= 1,
+        (Product::Ram(w), Tamper::SwapLimbs(f)) => {
+            let i = at(f).min(len - 2);
+            w.swap(i, i + 1);
+        }
+        (Product::Ram(w), Tamper::DropTop) => w.truncate(len - 1),
+        (Product::Ram(w), Tamper::AppendLimb) => {
+            let mut grown = crate::storage::WordBuf::zeroed(len + 1);
+            grown[..len].copy_from_slice(w);
+            grown[len] = 1;
+            *w = grown;
+        }
+        (Product::Disk { store, len }, t) => {
+            let mut x = [0u64; 2];
+            match t {
+                Tamper::ChangeLimb(f) => {
+                    let i = at(f);
+                    store.read(i, &mut x[..1])?;
+                    x[0] ^= 1;
+                    store.write(i, &x[..1])?;
+                }
+                Tamper::SwapLimbs(f) => {
+                    let i = at(f).min(*len - 2);
+                    store.read(i, &mut x)?;
+                    x.swap(0, 1);
+                    store.write(i, &x)?;
+                }
+                Tamper::DropTop => *len -= 1,
+                Tamper::AppendLimb => {
+                    store.write(*len, &[1])?;
+                    *len += 1;
+                }
+                Tamper::FlipSign => unreachable!(),
+            }
+        }
+    }
+    Ok(())
 }

@@ -117,6 +117,10 @@ enum Command {
         /// Keep no resumable state (benchmarks of what checkpoints cost).
         #[arg(long, hide = true)]
         no_checkpoint: bool,
+        /// Skip the residue check of the product against its factors that
+        /// runs before the product is renamed into place.
+        #[arg(long)]
+        no_self_check: bool,
         /// Print a machine-readable report on stdout.
         #[arg(long)]
         json: bool,
@@ -291,6 +295,7 @@ fn run(cli: Cli) -> Result<(), Error> {
             restart,
             keep_state,
             no_checkpoint,
+            no_self_check,
             json,
         } => {
             let threads = set_threads(threads)?;
@@ -314,6 +319,8 @@ fn run(cli: Cli) -> Result<(), Error> {
                 restart,
                 keep_state,
                 checkpoint: !no_checkpoint,
+                self_check: !no_self_check,
+                tamper: None,
                 faults: None,
             };
             let report = multiply_files(&opts)?;

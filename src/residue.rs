@@ -128,6 +128,9 @@ pub fn residues<S: LimbSource + ?Sized>(
 /// moduli at once in one sweep, so that their independent chains of
 /// multiplications overlap in the pipeline.
 fn chunk_residues(h: &[Horner], limbs: &[u64]) -> Vec<u64> {
+    if let [one] = h {
+        return vec![single_residue(one, limbs)];
+    }
     let mut out = Vec::with_capacity(h.len());
     for group in h.chunks(5) {
         match group.len() {
@@ -141,6 +144,29 @@ fn chunk_residues(h: &[Horner], limbs: &[u64]) -> Vec<u64> {
     out
 }
 
+/// One modulus: the limbs are cut into four quarters reduced side by side
+/// (four independent chains instead of one), then joined with powers of
+/// the base.
+fn single_residue(h: &Horner, limbs: &[u64]) -> u64 {
+    let n = limbs.len();
+    let q = n.div_ceil(4);
+    if q < 16 {
+        return limbs.iter().rev().fold(0u64, |r, &l| h.step(r, l));
+    }
+    let at = |j: usize, i: usize| limbs.get(j * q + i).copied().unwrap_or(0);
+    let mut r = [0u64; 4];
+    for i in (0..q).rev() {
+        for (j, rj) in r.iter_mut().enumerate() {
+            *rj = h.step(*rj, at(j, i));
+        }
+    }
+    let base = h.m.mont_mul(h.base_mont, 1);
+    let shift = pow(&h.m, base, q as u64);
+    r.iter()
+        .rev()
+        .fold(0u64, |acc, &part| h.m.add(h.m.mul(acc, shift), part))
+}
+
 /// [`chunk_residues`] for exactly `N` moduli.
 #[inline(always)]
 fn horner_group<const N: usize>(h: &[Horner], limbs: &[u64]) -> [u64; N] {
@@ -152,6 +178,47 @@ fn horner_group<const N: usize>(h: &[Horner], limbs: &[u64]) -> [u64; N] {
         }
     }
     r
+}
+
+/// Accumulates the residue modulo `p` of a number whose limbs arrive as
+/// windows in any order and from many threads (the product as it is
+/// written): each window adds `base^first * value(window)`.
+pub struct ResidueTap {
+    h: Horner,
+    base: u64,
+    acc: std::sync::atomic::AtomicU64,
+}
+
+impl ResidueTap {
+    /// A tap modulo the odd prime `p < 2^62` for limbs in `radix`.
+    pub fn new(p: u64, radix: Radix) -> Self {
+        let h = Horner::new(p, radix);
+        ResidueTap {
+            h,
+            base: h.m.mont_mul(h.base_mont, 1),
+            acc: std::sync::atomic::AtomicU64::new(0),
+        }
+    }
+
+    /// Adds the window of limbs `first..first + limbs.len()`.
+    pub fn add(&self, first: usize, limbs: &[u64]) {
+        use std::sync::atomic::Ordering;
+        let m = &self.h.m;
+        let part = m.mul(
+            single_residue(&self.h, limbs),
+            pow(m, self.base, first as u64),
+        );
+        let _ = self
+            .acc
+            .fetch_update(Ordering::Relaxed, Ordering::Relaxed, |a| {
+                Some(m.add(a, part))
+            });
+    }
+
+    /// The residue of everything added.
+    pub fn value(&self) -> u64 {
+        self.acc.load(std::sync::atomic::Ordering::Relaxed)
+    }
 }
 
 /// The residue of a signed value from that of its magnitude.
@@ -207,6 +274,14 @@ pub fn is_prime(n: u64) -> bool {
         return false;
     }
     true
+}
+
+/// A seed from the clock and the process, for draws nobody asked to repeat.
+pub fn fresh_seed() -> u64 {
+    let t = std::time::SystemTime::now()
+        .duration_since(std::time::UNIX_EPOCH)
+        .map_or(0, |d| d.as_nanos() as u64);
+    t ^ (std::process::id() as u64).rotate_left(32)
 }
 
 /// `count` primes drawn uniformly from `[2^61, 2^62)`, reproducibly from
@@ -283,6 +358,30 @@ mod tests {
                 // one modulus alone takes the general path
                 let one = residues(limbs.as_slice(), len, radix, &moduli[..1]);
                 assert_eq!(one[0], got[0]);
+            }
+        }
+    }
+
+    #[test]
+    fn single_modulus_quarters_and_the_tap_agree_with_the_reference() {
+        let limbs: Vec<u64> = (0..5000u64)
+            .map(|i| i.wrapping_mul(0x2545_f491_4f6c_dd1d))
+            .collect();
+        for len in [0usize, 1, 63, 64, 65, 1001, 5000] {
+            let x = &limbs[..len];
+            for p in FIXED_MODULI {
+                let h = Horner::new(p, Radix::Binary);
+                assert_eq!(
+                    single_residue(&h, x),
+                    reference(x, Radix::Binary, p),
+                    "{len}"
+                );
+                // windows out of order, as the product's writer delivers them
+                let tap = ResidueTap::new(p, Radix::Binary);
+                for w in (0..len).step_by(300).rev() {
+                    tap.add(w, &x[w..(w + 300).min(len)]);
+                }
+                assert_eq!(tap.value(), reference(x, Radix::Binary, p));
             }
         }
     }

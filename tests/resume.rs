@@ -52,6 +52,8 @@ fn options(dir: &Path, out: &str) -> MulOptions {
         restart: false,
         keep_state: false,
         checkpoint: true,
+        self_check: true,
+        tamper: None,
         faults: None,
     }
 }

@@ -1,0 +1,114 @@
+//! The self-check of `mul`: a product damaged after it was computed (one
+//! changed limb, first, middle or last; two swapped limbs; the top limb
+//! dropped; a limb appended; the wrong sign) fails the run with exit code 6
+//! and leaves nothing at the output path, for products in RAM and on disk.
+
+mod common;
+
+use common::Rng;
+use std::path::Path;
+use vastmul::format::{write_operand, Format};
+use vastmul::job::{multiply_files, MulOptions, Tamper};
+use vastmul::plan::Force;
+use vastmul::Radix;
+
+fn options(dir: &Path, memory: Option<u64>) -> MulOptions {
+    MulOptions {
+        a: dir.join("a.txt"),
+        b: dir.join("b.txt"),
+        output: dir.join("c.txt"),
+        in_format: None,
+        out_format: None,
+        force: false,
+        threads: 2,
+        algorithm: Force::Auto,
+        memory,
+        scratch: None,
+        restart: false,
+        keep_state: false,
+        checkpoint: true,
+        self_check: true,
+        tamper: None,
+        faults: None,
+    }
+}
+
+const DAMAGE: [Tamper; 8] = [
+    Tamper::ChangeLimb(0.0),
+    Tamper::ChangeLimb(0.5),
+    Tamper::ChangeLimb(1.0),
+    Tamper::SwapLimbs(0.3),
+    Tamper::DropTop,
+    Tamper::AppendLimb,
+    Tamper::FlipSign,
+    Tamper::SwapLimbs(0.0),
+];
+
+#[test]
+fn damaged_products_fail_the_run_and_leave_nothing() {
+    let t = tempfile::tempdir().unwrap();
+    let d = t.path();
+    let mut rng = Rng::new(4040);
+    let a = rng.limbs(150_000, Radix::Decimal);
+    let b = rng.limbs(120_000, Radix::Decimal);
+    for (name, x) in [("a.txt", &a), ("b.txt", &b)] {
+        let mut f = std::fs::File::create(d.join(name)).unwrap();
+        write_operand(&mut f, Format::Decimal, Radix::Decimal, false, x).unwrap();
+    }
+    // In RAM, and out of core (the product on disk, checked as written).
+    for memory in [None, Some(16 << 20)] {
+        let o = options(d, memory);
+        let r = multiply_files(&o).expect("an undamaged product passes");
+        let sc = r.self_check.expect("on by default");
+        assert_eq!(
+            vastmul::residue::mul_mod(sc.residues[0], sc.residues[1], sc.modulus),
+            sc.residues[2]
+        );
+        std::fs::remove_file(&o.output).unwrap();
+        for damage in DAMAGE {
+            let mut bad = o.clone();
+            bad.tamper = Some(damage);
+            let e = multiply_files(&bad).unwrap_err();
+            assert_eq!(
+                e.exit_code(),
+                vastmul::error::exit::VERIFY,
+                "{damage:?} {memory:?}: {e}"
+            );
+            assert!(e.to_string().contains("self-check failed"), "{e}");
+            assert!(
+                !o.output.exists(),
+                "{damage:?}: a damaged product was written"
+            );
+            let stray: Vec<_> = std::fs::read_dir(d)
+                .unwrap()
+                .flatten()
+                .map(|e| e.file_name().to_string_lossy().into_owned())
+                .filter(|n| n.contains("partial"))
+                .collect();
+            assert!(stray.is_empty(), "{stray:?}");
+            // An out-of-core run keeps its state; start the next one afresh.
+            let mut clean = o.clone();
+            clean.restart = true;
+            clean.tamper = None;
+            multiply_files(&clean).unwrap();
+            std::fs::remove_file(&o.output).unwrap();
+        }
+    }
+}
+
+#[test]
+fn the_self_check_can_be_turned_off() {
+    let t = tempfile::tempdir().unwrap();
+    let d = t.path();
+    std::fs::write(d.join("a.txt"), "123456789\n").unwrap();
+    std::fs::write(d.join("b.txt"), "-987654321\n").unwrap();
+    let mut o = options(d, None);
+    o.self_check = false;
+    let r = multiply_files(&o).unwrap();
+    assert!(r.self_check.is_none());
+    // 123456789 * -987654321 = -121932631112635269 (Python's integers).
+    assert_eq!(
+        std::fs::read_to_string(&o.output).unwrap(),
+        "-121932631112635269\n"
+    );
+}
