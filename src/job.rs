@@ -10,7 +10,7 @@ use crate::format::{
 use crate::ooc::{OutOfCore, Space};
 use crate::output::{ensure_distinct, AtomicOutput};
 use crate::plan::{self, Algorithm, Force, Plan, Request};
-use crate::residue::{mul_mod, residues, signed, ResidueTap};
+use crate::residue::{mul_mod, residue_m61, signed, ResidueTap, MERSENNE_61};
 use crate::scratch::free_space;
 use crate::scratch::FileSpace;
 use crate::size::{default_budget, show_size};
@@ -83,10 +83,8 @@ pub enum Tamper {
 /// product is renamed into place.
 #[derive(Clone, Debug, Serialize)]
 pub struct SelfCheck {
-    /// The prime, drawn from `[2^61, 2^62)`.
+    /// The prime, 2^61 - 1.
     pub modulus: u64,
-    /// The seed it was drawn from.
-    pub seed: u64,
     /// Signed residues of A, B and the product.
     pub residues: [u64; 3],
     /// Seconds it took (the factors' residues and the product's).
@@ -605,20 +603,19 @@ pub fn multiply_files(opts: &MulOptions) -> Result<MulReport> {
     let mut self_check = None;
     let mut tap = None;
     if opts.self_check {
-        let seed = crate::residue::fresh_seed();
-        let p = crate::residue::random_moduli(seed, 1)[0];
+        let p = MERSENNE_61;
         let residue_of = |op: &Operand| {
             let r = if plan.release_inputs {
-                residues(&Released(op), op.limb_count(), radix, &[p])
+                residue_m61(&Released(op), op.limb_count(), radix)
             } else {
-                residues(op, op.limb_count(), radix, &[p])
+                residue_m61(op, op.limb_count(), radix)
             };
-            signed(r[0], op.is_negative(), p)
+            signed(r, op.is_negative(), p)
         };
         let ra = residue_of(a);
         let rb = if ops.b.is_some() { residue_of(b) } else { ra };
         let rc = match &product {
-            Product::Ram(limbs) => Some(residues(&limbs[..], limbs.len(), radix, &[p])[0]),
+            Product::Ram(limbs) => Some(residue_m61(&limbs[..], limbs.len(), radix)),
             Product::Disk { .. } => {
                 tap = Some(ResidueTap::new(p, radix));
                 None
@@ -626,7 +623,6 @@ pub fn multiply_files(opts: &MulOptions) -> Result<MulReport> {
         };
         self_check = Some(SelfCheck {
             modulus: p,
-            seed,
             residues: [ra, rb, rc.unwrap_or(0)],
             seconds: 0.0,
         });
@@ -736,11 +732,11 @@ fn verify_self_check(sc: &mut SelfCheck, magnitude: u64, negative: bool) -> Resu
     }
     Err(Error::Verify {
         what: format!(
-            "self-check failed: modulo the prime {p} (seed {}) the product's residue is {:#x}, \
+            "self-check failed: modulo the prime {p} the product's residue is {:#x}, \
              but its factors give {expected:#x}; the product was not written. This points at \
              a fault of the machine (memory, disk) or of vastmul: rerun (with --restart for an \
              out-of-core run) and please report it",
-            sc.seed, sc.residues[2]
+            sc.residues[2]
         ),
     })
 }
