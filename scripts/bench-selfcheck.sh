@@ -6,7 +6,7 @@
 # alternating (the machine is shared and noisy), and reports: the
 # self-check's own seconds from the JSON report (residues of both factors
 # and of the product) against the run's total, and the summed wall times of
-# the two kinds of run.
+# the two kinds of run (noisy), and the share of writing the manifest.
 #
 # Usage: scripts/bench-selfcheck.sh [RUNS]   (default 3)
 # Environment: SELFCHECK_DIR (default target/selfcheck-bench).
@@ -19,8 +19,8 @@ cargo build --release --quiet
 v=target/release/vastmul
 echo "# self-check cost, $(nproc) cores, $(date -u), commit $(git rev-parse --short HEAD)"
 echo
-echo "| operands | self-check s (each run) | run s (each run) | share | wall with / without |"
-echo "|---|---|---|---|---|"
+echo "| operands | self-check s (each run) | run s (each run) | self-check share | manifest share | wall with / without |"
+echo "|---|---|---|---|---|---|"
 for spec in "dec 40000000" "dec 100000000" "hex 67108864"; do
   set -- $spec
   radix=$1; digits=$2
@@ -49,12 +49,14 @@ while i < len(text):
     if not text_i: break
     r, n = dec.raw_decode(text_i); reports.append(r); i = len(text) - len(text_i) + n
 sc = [r["self_check"]["seconds"] for r in reports]
+mf = [r["manifest_seconds"] for r in reports]
 tot = [r["open_seconds"] + r["compute_seconds"] + r["self_check"]["seconds"] + r["write_seconds"] for r in reports]
+# write_seconds includes the manifest (written after the product).
 walls = {"with": 0, "without": 0}
 for line in open(f"{d}/walls"):
     m, ms = line.split(); walls[m] += int(ms)
 print(f"| {label} | {', '.join(f'{x:.3f}' for x in sc)} | {', '.join(f'{x:.3f}' for x in tot)} | "
-      f"{100 * sum(sc) / sum(tot):.1f}% | {walls['with'] / walls['without']:.3f} |")
+      f"{100 * sum(sc) / sum(tot):.1f}% | {100 * sum(mf) / sum(tot):.1f}% | {walls['with'] / walls['without']:.3f} |")
 PY
 done
 rm -f "$dir/c" "$dir/r.json"

@@ -56,6 +56,8 @@ pub struct CheckReport {
     pub moduli: Vec<ModulusCheck>,
     /// True when every modulus passed.
     pub passed: bool,
+    /// Whether C's manifest agreed with the file (`None`: no manifest).
+    pub manifest_agrees: Option<bool>,
 }
 
 /// Reads an operand once, releasing its pages behind the read.
@@ -105,12 +107,32 @@ pub fn check(req: &CheckRequest) -> Result<CheckReport> {
         })
         .collect();
     let passed = checks.iter().all(|m| m.passed);
+    // Cross-check C's residues modulo the fixed primes with its manifest.
+    let manifest_agrees = crate::manifest::read_for(&req.c)?.map(|m| {
+        m.residues.iter().all(|[p, r]| {
+            moduli
+                .iter()
+                .position(|q| q == p)
+                .is_some_and(|i| rc[i] == *r)
+        })
+    });
     let report = CheckReport {
         seed,
         square: req.b.is_none(),
         moduli: checks,
         passed,
+        manifest_agrees,
     };
+    if passed && manifest_agrees == Some(false) {
+        return Err(Error::Verify {
+            what: format!(
+                "{} is the product, but its manifest {} records other residues: the manifest \
+                 is stale or damaged",
+                req.c.display(),
+                crate::manifest::path_for(&req.c).display()
+            ),
+        });
+    }
     if !passed {
         let failed: Vec<String> = report
             .moduli

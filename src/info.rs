@@ -27,6 +27,10 @@ pub struct Info {
     pub file_bytes: u64,
     /// BLAKE3 hash of the whole file, in lowercase hexadecimal.
     pub blake3: String,
+    /// The manifest beside the file, when there is one.
+    pub manifest: Option<crate::manifest::Manifest>,
+    /// Whether the file's size, BLAKE3 and sign match its manifest.
+    pub manifest_matches: Option<bool>,
 }
 
 /// Paths need not be UTF-8; a report shows them the way `Display` would
@@ -44,7 +48,13 @@ pub fn info(path: &Path, format: Option<Format>) -> Result<Info> {
         .finalize()
         .to_hex()
         .to_string();
+    let manifest = crate::manifest::read_for(path)?;
+    let manifest_matches = manifest
+        .as_ref()
+        .map(|m| m.blake3 == blake3 && m.bytes == op.file_len() && m.negative == op.is_negative());
     Ok(Info {
+        manifest,
+        manifest_matches,
         path: path.to_path_buf(),
         format: op.format(),
         radix: op.radix(),
@@ -62,22 +72,32 @@ impl std::fmt::Display for Info {
             Radix::Binary => "hexadecimal",
             Radix::Decimal => "decimal",
         };
-        writeln!(f, "path    {}", self.path.display())?;
-        writeln!(f, "format  {}", self.format.name())?;
-        writeln!(f, "radix   {}", self.radix.name())?;
+        writeln!(f, "path     {}", self.path.display())?;
+        writeln!(f, "format   {}", self.format.name())?;
+        writeln!(f, "radix    {}", self.radix.name())?;
         writeln!(
             f,
-            "sign    {}",
+            "sign     {}",
             if self.negative {
                 "negative"
             } else {
                 "non-negative"
             }
         )?;
-        writeln!(f, "digits  {} {digit_kind}", self.digits)?;
-        writeln!(f, "limbs   {}", self.limbs)?;
-        writeln!(f, "size    {}", crate::size::show_size(self.file_bytes))?;
-        write!(f, "blake3  {}", self.blake3)
+        writeln!(f, "digits   {} {digit_kind}", self.digits)?;
+        writeln!(f, "limbs    {}", self.limbs)?;
+        writeln!(f, "size     {}", crate::size::show_size(self.file_bytes))?;
+        write!(f, "blake3   {}", self.blake3)?;
+        match (&self.manifest, self.manifest_matches) {
+            (Some(m), Some(ok)) => write!(
+                f,
+                "\nmanifest {}: {} (residues modulo {} primes recorded; vastmul check --file checks them)",
+                crate::manifest::path_for(&self.path).display(),
+                if ok { "size, BLAKE3 and sign match" } else { "DOES NOT MATCH the file" },
+                m.residues.len()
+            ),
+            _ => write!(f, "\nmanifest none"),
+        }
     }
 }
 

@@ -117,6 +117,10 @@ pub struct MulReport {
     pub resume_notes: Vec<String>,
     /// The self-check, unless it was turned off.
     pub self_check: Option<SelfCheck>,
+    /// The manifest written beside the product.
+    pub manifest: PathBuf,
+    /// Seconds spent writing it (hashing the product and its residues).
+    pub manifest_seconds: f64,
 }
 
 impl LimbSource for Operand {
@@ -697,6 +701,10 @@ pub fn multiply_files(opts: &MulOptions) -> Result<MulReport> {
         sc.seconds = check_seconds;
     }
     out.commit()?;
+    // The manifest beside the product: read back from the file as written.
+    let manifest_start = Instant::now();
+    crate::manifest::write_for(&opts.output, Some(out_format))?;
+    let manifest_seconds = manifest_start.elapsed().as_secs_f64();
     if let Some(st) = state {
         if !opts.keep_state {
             st.dir.remove()?;
@@ -718,6 +726,8 @@ pub fn multiply_files(opts: &MulOptions) -> Result<MulReport> {
         resumed_at,
         resume_notes,
         self_check,
+        manifest: crate::manifest::path_for(&opts.output),
+        manifest_seconds,
     })
 }
 

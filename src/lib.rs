@@ -53,6 +53,7 @@ pub use engine::multiply;
 pub mod check;
 pub mod demo;
 pub mod job;
+pub mod manifest;
 pub mod residue;
 pub mod scratch;
 pub mod size;

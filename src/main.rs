@@ -165,12 +165,15 @@ enum Command {
         after_help = "Examples:\n  vastmul check a.txt b.txt c.txt\n  vastmul check --square a.txt c.txt --seed 12345\nExit code 0 when the check passes, 6 when it fails."
     )]
     Check {
-        /// A B C, or A C with --square.
-        #[arg(num_args = 2..=3, required = true)]
+        /// A B C, A C with --square, or C with --file.
+        #[arg(num_args = 1..=3, required = true)]
         files: Vec<PathBuf>,
         /// Check C = A^2 (two files: A C).
         #[arg(long)]
         square: bool,
+        /// Check one file against its own manifest (one file: C).
+        #[arg(long, conflicts_with = "square")]
+        file: bool,
         /// Seed of the random moduli (printed by every check; repeats it).
         #[arg(long)]
         seed: Option<u64>,
@@ -374,12 +377,43 @@ fn run(cli: Cli) -> Result<(), Error> {
         }
         Command::Check {
             files,
+            file: true,
+            in_format,
+            threads,
+            json,
+            ..
+        } => {
+            set_threads(threads)?;
+            let [c] = files.as_slice() else {
+                return Err(Error::usage(
+                    "check --file needs one file: C",
+                    "pass the product whose manifest to check it against",
+                ));
+            };
+            let m = vastmul::manifest::check_file(c, in_format.map(Into::into))?;
+            if json {
+                println!(
+                    "{}",
+                    serde_json::to_string_pretty(&m).expect("manifests serialize")
+                );
+            } else {
+                println!(
+                    "check passed: {} matches its manifest {} (size, BLAKE3, sign, residues modulo {} primes)",
+                    c.display(),
+                    vastmul::manifest::path_for(c).display(),
+                    m.residues.len()
+                );
+            }
+        }
+        Command::Check {
+            files,
             square,
             seed,
             random,
             json,
             in_format,
             threads,
+            file: false,
         } => {
             set_threads(threads)?;
             let (a, b, c) = match (square, files.as_slice()) {
@@ -417,6 +451,11 @@ fn run(cli: Cli) -> Result<(), Error> {
                         "modulus {:>19} ({:6}): {:#018x} x {:#018x} = {:#018x}  pass",
                         m.modulus, m.kind, m.residues[0], m.residues[1], m.residues[2]
                     );
+                }
+                match r.manifest_agrees {
+                    Some(true) => println!("manifest: agrees with the product"),
+                    Some(false) => {}
+                    None => println!("manifest: none beside the product"),
                 }
                 println!(
                     "check passed: {} moduli, {} fixed and {} random (seed {}; --seed {} repeats this check)",

@@ -330,7 +330,11 @@ fn a_disk_that_fills_mid_run_keeps_the_state_and_the_rerun_completes() {
         .flatten()
         .map(|e| e.file_name())
         .collect();
-    assert_eq!(left.len(), 1, "only the product is left: {left:?}");
+    assert_eq!(
+        left.len(),
+        2,
+        "only the product and its manifest are left: {left:?}"
+    );
 }
 
 #[test]

@@ -2,6 +2,8 @@
 //! changed limb, first, middle or last; two swapped limbs; the top limb
 //! dropped; a limb appended; the wrong sign) fails the run with exit code 6
 //! and leaves nothing at the output path, for products in RAM and on disk.
+//! The manifest written beside every product: `check --file` finds bit rot,
+//! `check A B C` finds a stale manifest, `info` reports it.
 
 mod common;
 
@@ -111,4 +113,64 @@ fn the_self_check_can_be_turned_off() {
         std::fs::read_to_string(&o.output).unwrap(),
         "-121932631112635269\n"
     );
+}
+
+#[test]
+fn the_manifest_beside_the_product_catches_later_damage() {
+    let t = tempfile::tempdir().unwrap();
+    let d = t.path();
+    let mut rng = Rng::new(99);
+    let a = rng.limbs(20_000, Radix::Decimal);
+    let b = rng.limbs(15_000, Radix::Decimal);
+    for (name, x) in [("a.txt", &a), ("b.txt", &b)] {
+        let mut f = std::fs::File::create(d.join(name)).unwrap();
+        write_operand(&mut f, Format::Decimal, Radix::Decimal, true, x).unwrap();
+    }
+    let o = options(d, None);
+    let r = multiply_files(&o).unwrap();
+    assert_eq!(r.manifest, d.join("c.txt.vastmul.json"));
+    let m = vastmul::manifest::check_file(&o.output, None).expect("fresh product matches");
+    assert!(!m.negative, "(-a) x (-b) is positive");
+    let info = vastmul::info::info(&o.output, None).unwrap();
+    assert_eq!(info.manifest_matches, Some(true));
+    let req = vastmul::check::CheckRequest {
+        a: o.a.clone(),
+        b: Some(o.b.clone()),
+        c: o.output.clone(),
+        format: None,
+        seed: Some(5),
+        random: 1,
+    };
+    assert_eq!(
+        vastmul::check::check(&req).unwrap().manifest_agrees,
+        Some(true)
+    );
+    // Bit rot: one digit changed in the middle of the product.
+    let good = std::fs::read(&o.output).unwrap();
+    let mut bytes = good.clone();
+    let i = bytes.len() / 2;
+    bytes[i] = if bytes[i] == b'3' { b'4' } else { b'3' };
+    std::fs::write(&o.output, &bytes).unwrap();
+    let e = vastmul::manifest::check_file(&o.output, None).unwrap_err();
+    assert_eq!(e.exit_code(), vastmul::error::exit::VERIFY);
+    assert!(e.to_string().contains("does not match its manifest"), "{e}");
+    assert_eq!(
+        vastmul::info::info(&o.output, None)
+            .unwrap()
+            .manifest_matches,
+        Some(false)
+    );
+    // A stale manifest: the product is right, the manifest's residues not.
+    std::fs::write(&o.output, &good).unwrap();
+    let path = vastmul::manifest::path_for(&o.output);
+    let mut m: vastmul::manifest::Manifest =
+        serde_json::from_slice(&std::fs::read(&path).unwrap()).unwrap();
+    m.residues[1][1] ^= 1;
+    std::fs::write(&path, serde_json::to_vec(&m).unwrap()).unwrap();
+    let e = vastmul::check::check(&req).unwrap_err();
+    assert!(e.to_string().contains("manifest"), "{e}");
+    // No manifest: check --file says so and how to check instead.
+    std::fs::remove_file(&path).unwrap();
+    let e = vastmul::manifest::check_file(&o.output, None).unwrap_err();
+    assert!(e.to_string().contains("vastmul check A B C"), "{e}");
 }
