@@ -703,7 +703,18 @@ pub fn multiply_files(opts: &MulOptions) -> Result<MulReport> {
     out.commit()?;
     // The manifest beside the product: read back from the file as written.
     let manifest_start = Instant::now();
-    crate::manifest::write_for(&opts.output, Some(out_format))?;
+    let known = match &product {
+        Product::Ram(limbs) => Some(crate::manifest::describe_written(
+            &opts.output,
+            out_format,
+            radix,
+            negative,
+            limbs,
+        )?),
+        // Out of core the product is re-read in released windows.
+        Product::Disk { .. } => None,
+    };
+    crate::manifest::write_for(&opts.output, Some(out_format), known)?;
     let manifest_seconds = manifest_start.elapsed().as_secs_f64();
     if let Some(st) = state {
         if !opts.keep_state {

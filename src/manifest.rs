@@ -85,10 +85,60 @@ pub fn describe(path: &Path, format: Option<Format>) -> Result<Manifest> {
     })
 }
 
+/// The manifest of a product just written from `limbs` in RAM: the
+/// residues come from the limbs (no second parse of the file), the BLAKE3
+/// from the file as written.
+pub fn describe_written(
+    path: &Path,
+    format: Format,
+    radix: Radix,
+    negative: bool,
+    limbs: &[u64],
+) -> Result<Manifest> {
+    let bytes = std::fs::metadata(path).map_err(|e| Error::io(path, e))?.len();
+    let hash = blake3::Hasher::new()
+        .update_mmap_rayon(path)
+        .map_err(|e| Error::io(path, e))?
+        .finalize();
+    let n = limbs.len();
+    let negative = negative && n > 0;
+    let r = residues(limbs, n, radix, &FIXED_MODULI);
+    let digits = match (n, radix) {
+        (0, _) => 1,
+        (_, Radix::Decimal) => 19 * (n as u64 - 1) + limbs[n - 1].to_string().len() as u64,
+        (_, Radix::Binary) => 16 * (n as u64 - 1) + format!("{:x}", limbs[n - 1]).len() as u64,
+    };
+    Ok(Manifest {
+        kind: KIND.into(),
+        version: VERSION,
+        file: path
+            .file_name()
+            .unwrap_or_default()
+            .to_string_lossy()
+            .into_owned(),
+        bytes,
+        format,
+        radix,
+        negative,
+        limbs: n as u64,
+        digits,
+        blake3: hash.to_hex().to_string(),
+        residues: FIXED_MODULI
+            .iter()
+            .zip(&r)
+            .map(|(&p, &x)| [p, signed(x, negative, p)])
+            .collect(),
+    })
+}
+
 /// Writes the manifest of the product at `path`, atomically (temporary
-/// file, fsync, rename), replacing an older one.
-pub fn write_for(path: &Path, format: Option<Format>) -> Result<Manifest> {
-    let m = describe(path, format)?;
+/// file, fsync, rename), replacing an older one; `known` is the manifest
+/// when the caller already has it, else it is read from the file.
+pub fn write_for(path: &Path, format: Option<Format>, known: Option<Manifest>) -> Result<Manifest> {
+    let m = match known {
+        Some(m) => m,
+        None => describe(path, format)?,
+    };
     let target = path_for(path);
     let mut tmp_name = std::ffi::OsString::from(".");
     tmp_name.push(target.file_name().unwrap_or_default());
