@@ -95,7 +95,9 @@ pub fn describe_written(
     negative: bool,
     limbs: &[u64],
 ) -> Result<Manifest> {
-    let bytes = std::fs::metadata(path).map_err(|e| Error::io(path, e))?.len();
+    let bytes = std::fs::metadata(path)
+        .map_err(|e| Error::io(path, e))?
+        .len();
     let hash = blake3::Hasher::new()
         .update_mmap_rayon(path)
         .map_err(|e| Error::io(path, e))?
