@@ -10,7 +10,7 @@ use crate::format::{
 use crate::ooc::{OutOfCore, Space};
 use crate::output::{ensure_distinct, AtomicOutput};
 use crate::plan::{self, Algorithm, Force, Plan, Request};
-use crate::residue::{mul_mod, residue_m61, signed, ResidueTap, MERSENNE_61};
+use crate::residue::{mul_mod, residue_m61, signed, ResidueTap, TapM61, MERSENNE_61};
 use crate::scratch::free_space;
 use crate::scratch::FileSpace;
 use crate::size::{default_budget, show_size};
@@ -529,6 +529,7 @@ pub fn multiply_files(opts: &MulOptions) -> Result<MulReport> {
         b.expect_scattered_reads();
     }
     let mut state = None;
+    let mut tapped: Option<(u64, u64)> = None;
     let mut resumed_at = None;
     let mut resume_notes = Vec::new();
     let mut identify_seconds = 0.0;
@@ -589,6 +590,28 @@ pub fn multiply_files(opts: &MulOptions) -> Result<MulReport> {
             state = Some(st);
             product
         }
+        // In RAM each limb of the factors is read once: the self-check takes
+        // their residues on the way, instead of parsing the files again.
+        Algorithm::Ntt { .. } | Algorithm::Pieces { .. } | Algorithm::Schoolbook
+            if opts.self_check =>
+        {
+            let (ra, rb) = (Released(a), Released(b));
+            let (ta, tb);
+            let product = if plan.release_inputs {
+                ta = TapM61::new(&ra as &dyn LimbSource, radix);
+                tb = TapM61::new(&rb as &dyn LimbSource, radix);
+                engine::execute_timed(&plan, &ta, &tb, &dir, &mut timer)?
+            } else {
+                ta = TapM61::new(a as &dyn LimbSource, radix);
+                tb = TapM61::new(b as &dyn LimbSource, radix);
+                engine::execute_timed(&plan, &ta, &tb, &dir, &mut timer)?
+            };
+            tapped = Some((
+                ta.value(),
+                if plan.square { ta.value() } else { tb.value() },
+            ));
+            product
+        }
         _ if plan.release_inputs => {
             engine::execute_timed(&plan, &Released(a), &Released(b), &dir, &mut timer)?
         }
@@ -616,8 +639,13 @@ pub fn multiply_files(opts: &MulOptions) -> Result<MulReport> {
             };
             signed(r, op.is_negative(), p)
         };
-        let ra = residue_of(a);
-        let rb = if ops.b.is_some() { residue_of(b) } else { ra };
+        let (ra, rb) = match tapped {
+            Some((x, y)) => (signed(x, a.is_negative(), p), signed(y, b.is_negative(), p)),
+            None => {
+                let ra = residue_of(a);
+                (ra, if ops.b.is_some() { residue_of(b) } else { ra })
+            }
+        };
         let rc = match &product {
             Product::Ram(limbs) => Some(residue_m61(&limbs[..], limbs.len(), radix)),
             Product::Disk { .. } => {

@@ -249,6 +249,138 @@ pub fn residue_m61<S: LimbSource + ?Sized>(src: &S, len: usize, radix: Radix) ->
         .fold(0u64, |acc, &part| m61_step(acc, part, shift_chunk))
 }
 
+/// A limb source that takes, on the way, the residue modulo 2^61 - 1 of
+/// every limb read through it: the self-check of `mul` gets the factors'
+/// residues from the pass that reads them anyway, without parsing the files
+/// a second time. Each limb position must be read exactly once.
+pub struct TapM61<'a, L: ?Sized> {
+    inner: &'a L,
+    base_q: u64,
+    id: usize,
+    slots: Vec<std::sync::atomic::AtomicU64>,
+}
+
+/// Identities of taps, so that a thread's cached weights belong to one.
+static TAP_IDS: std::sync::atomic::AtomicUsize = std::sync::atomic::AtomicUsize::new(1);
+
+thread_local! {
+    /// (tap, last first limb, its weight, last stride, the stride's weight):
+    /// successive reads of a column pass are one row apart, so most weights
+    /// cost one multiplication.
+    static WEIGHTS: std::cell::Cell<(usize, u64, u64, u64, u64)> =
+        const { std::cell::Cell::new((0, 0, 0, 0, 0)) };
+}
+
+fn m61_mul(a: u64, b: u64) -> u64 {
+    m61_step(a, 0, b)
+}
+
+fn m61_pow(mut b: u64, mut e: u64) -> u64 {
+    let mut r = 1u64;
+    while e > 0 {
+        if e & 1 == 1 {
+            r = m61_mul(r, b);
+        }
+        b = m61_mul(b, b);
+        e >>= 1;
+    }
+    r
+}
+
+impl<'a, L: LimbSource + ?Sized> TapM61<'a, L> {
+    /// A tap over `inner`, whose limbs are in `radix`.
+    pub fn new(inner: &'a L, radix: Radix) -> Self {
+        TapM61 {
+            inner,
+            base_q: match radix {
+                Radix::Binary => 8,
+                Radix::Decimal => DEC_BASE % MERSENNE_61,
+            },
+            id: TAP_IDS.fetch_add(1, std::sync::atomic::Ordering::Relaxed),
+            slots: (0..64)
+                .map(|_| std::sync::atomic::AtomicU64::new(0))
+                .collect(),
+        }
+    }
+
+    /// `base^first mod q`, from this thread's last weight when it can.
+    fn weight(&self, first: u64) -> u64 {
+        WEIGHTS.with(|c| {
+            let (id, last, last_w, stride, stride_w) = c.get();
+            let w = if id == self.id && first >= last {
+                let delta = first - last;
+                if delta == stride {
+                    m61_mul(last_w, stride_w)
+                } else {
+                    let sw = m61_pow(self.base_q, delta);
+                    c.set((id, last, last_w, delta, sw));
+                    m61_mul(last_w, sw)
+                }
+            } else {
+                m61_pow(self.base_q, first)
+            };
+            let (_, _, _, stride, stride_w) = c.get();
+            let keep = if id == self.id {
+                (stride, stride_w)
+            } else {
+                (0, 1)
+            };
+            c.set((self.id, first, w, keep.0, keep.1));
+            w
+        })
+    }
+
+    /// The residue of everything read so far.
+    pub fn value(&self) -> u64 {
+        self.slots.iter().fold(0u64, |acc, s| {
+            let x = s.load(std::sync::atomic::Ordering::Relaxed);
+            let t = acc + x;
+            if t >= MERSENNE_61 {
+                t - MERSENNE_61
+            } else {
+                t
+            }
+        })
+    }
+}
+
+impl<L: LimbSource + ?Sized> LimbSource for TapM61<'_, L> {
+    fn fill_limbs(&self, first: usize, out: &mut [u64]) {
+        use std::sync::atomic::Ordering;
+        self.inner.fill_limbs(first, out);
+        let h = if self.base_q == 8 {
+            // 2^64 = 8 (mod q): a shift instead of a multiplication.
+            out.iter().rev().fold(0u64, |r, &l| {
+                let s = ((r as u128) << 3) + l as u128;
+                let f = (s as u64 & MERSENNE_61) as u128 + (s >> 61);
+                let f = (f as u64 & MERSENNE_61) + (f >> 61) as u64;
+                if f >= MERSENNE_61 {
+                    f - MERSENNE_61
+                } else {
+                    f
+                }
+            })
+        } else {
+            out.iter()
+                .rev()
+                .fold(0u64, |r, &l| m61_step(r, l, self.base_q))
+        };
+        if h == 0 {
+            return;
+        }
+        let part = m61_mul(h, self.weight(first as u64));
+        let slot = &self.slots[rayon::current_thread_index().unwrap_or(0) % self.slots.len()];
+        let _ = slot.fetch_update(Ordering::Relaxed, Ordering::Relaxed, |a| {
+            let t = a + part;
+            Some(if t >= MERSENNE_61 { t - MERSENNE_61 } else { t })
+        });
+    }
+
+    fn prefetch_limbs(&self, first: usize, n: usize) {
+        self.inner.prefetch_limbs(first, n)
+    }
+}
+
 /// Accumulates the residue modulo `p` of a number whose limbs arrive as
 /// windows in any order and from many threads (the product as it is
 /// written): each window adds `base^first * value(window)`.
@@ -480,6 +612,32 @@ mod tests {
             assert_eq!(
                 residue_m61(max.as_slice(), 3000, radix),
                 reference(&max, radix, MERSENNE_61)
+            );
+        }
+    }
+
+    #[test]
+    fn the_tap_sees_strided_and_out_of_order_reads() {
+        for radix in [Radix::Binary, Radix::Decimal] {
+            let limbs: Vec<u64> = (0..10_000u64)
+                .map(|i| i.wrapping_mul(0x9e37_79b9_7f4a_7c15) % radix.max_limb())
+                .collect();
+            let tap = TapM61::new(limbs.as_slice(), radix);
+            // Column-pass order: blocks of 16 columns, rows 625 apart,
+            // blocks in parallel.
+            let (rows, cols) = (16usize, 625usize);
+            (0..cols.div_ceil(16)).into_par_iter().for_each(|block| {
+                let mut seg = [0u64; 16];
+                for r in 0..rows {
+                    let c0 = block * 16;
+                    let w = 16.min(cols - c0);
+                    tap.fill_limbs(r * cols + c0, &mut seg[..w]);
+                }
+            });
+            assert_eq!(
+                tap.value(),
+                reference(&limbs, radix, MERSENNE_61),
+                "{radix:?}"
             );
         }
     }

@@ -174,3 +174,45 @@ fn the_manifest_beside_the_product_catches_later_damage() {
     let e = vastmul::manifest::check_file(&o.output, None).unwrap_err();
     assert!(e.to_string().contains("vastmul check A B C"), "{e}");
 }
+
+/// Every in-memory path takes the factors' residues as it reads them: a
+/// wrong residue would fail these correct products.
+#[test]
+fn correct_products_pass_on_every_path_and_sign() {
+    let t = tempfile::tempdir().unwrap();
+    let d = t.path();
+    let mut rng = Rng::new(31337);
+    for radix in [Radix::Decimal, Radix::Binary] {
+        let format = match radix {
+            Radix::Decimal => Format::Decimal,
+            Radix::Binary => Format::Hex,
+        };
+        // schoolbook, one NTT, pieces (both orders)
+        for (la, lb) in [(20, 7), (30_000, 25_000), (200_000, 900), (900, 200_000)] {
+            let a = rng.limbs(la, radix);
+            let b = rng.limbs(lb, radix);
+            for (na, nb) in [(false, false), (true, false), (true, true)] {
+                for (name, x, neg) in [("a.txt", &a, na), ("b.txt", &b, nb)] {
+                    let mut f = std::fs::File::create(d.join(name)).unwrap();
+                    write_operand(&mut f, format, radix, neg, x).unwrap();
+                }
+                let mut o = options(d, None);
+                o.force = true;
+                let r = multiply_files(&o).unwrap_or_else(|e| panic!("{la}x{lb}: {e}"));
+                assert!(r.self_check.is_some());
+            }
+        }
+        // squares: the same file, and equal magnitudes of opposite signs
+        let a = rng.limbs(40_000, radix);
+        for (name, neg) in [("a.txt", false), ("b.txt", true)] {
+            let mut f = std::fs::File::create(d.join(name)).unwrap();
+            write_operand(&mut f, format, radix, neg, &a).unwrap();
+        }
+        let mut o = options(d, None);
+        o.force = true;
+        let r = multiply_files(&o).unwrap();
+        assert!(r.plan.square, "equal magnitudes are squared");
+        o.b = o.a.clone();
+        multiply_files(&o).unwrap();
+    }
+}
