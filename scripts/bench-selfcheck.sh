@@ -3,10 +3,11 @@
 #
 # For each pair (decimal and hexadecimal operands from `vastmul gen`), runs
 # `mul` RUNS times with the self-check and RUNS times with --no-self-check,
-# alternating (the machine is shared and noisy), and reports: the
-# self-check's own seconds from the JSON report (residues of both factors
-# and of the product) against the run's total, and the summed wall times of
-# the two kinds of run (noisy), and the share of writing the manifest.
+# alternating (the machine is shared and noisy), and reports from the JSON
+# reports: the work time of each run (open, compute, self-check, write;
+# the factors' residues are taken inside compute), the self-check's cost
+# as the ratio of the summed work times, the product residue's own
+# seconds, and the share of writing the manifest.
 #
 # Usage: scripts/bench-selfcheck.sh [RUNS]   (default 3)
 # Environment: SELFCHECK_DIR (default target/selfcheck-bench).
@@ -19,7 +20,7 @@ cargo build --release --quiet
 v=target/release/vastmul
 echo "# self-check cost, $(nproc) cores, $(date -u), commit $(git rev-parse --short HEAD)"
 echo
-echo "| operands | self-check s (each run) | run s (each run) | self-check share | manifest share | wall with / without |"
+echo "| operands | with self-check s | without s | self-check cost | product residue s | manifest share |"
 echo "|---|---|---|---|---|---|"
 for spec in "dec 40000000" "dec 100000000" "hex 67108864"; do
   set -- $spec
@@ -27,36 +28,42 @@ for spec in "dec 40000000" "dec 100000000" "hex 67108864"; do
   a="$dir/a-$radix-$digits"; b="$dir/b-$radix-$digits"
   [ -f "$a" ] || "$v" gen --radix "$radix" --digits "$digits" --seed 41 -o "$a"
   [ -f "$b" ] || "$v" gen --radix "$radix" --digits "$digits" --seed 42 -o "$b"
-  : > "$dir/with.json"; : > "$dir/walls"
+  : > "$dir/with.json"; : > "$dir/without.json"; : > "$dir/walls"
+  # ABBA order: the first run of a pair is slower here whichever it is.
   for i in $(seq 1 "$runs"); do
-    for mode in with without; do
+    order="with without"; [ $((i % 2)) = 0 ] && order="without with"
+    for mode in $order; do
       extra=(); [ $mode = without ] && extra=(--no-self-check)
       rm -f "$dir/c"
       t0=$(date +%s%N)
       "$v" mul "$a" "$b" -o "$dir/c" --json "${extra[@]}" > "$dir/r.json"
       t1=$(date +%s%N)
       echo "$mode $(( (t1 - t0) / 1000000 ))" >> "$dir/walls"
-      [ $mode = with ] && { cat "$dir/r.json"; echo; } >> "$dir/with.json"
+      { cat "$dir/r.json"; echo; } >> "$dir/$mode.json"
     done
   done
   python3 - "$dir" "$radix $digits digits" <<'PY'
 import json, sys
 d, label = sys.argv[1], sys.argv[2]
-text = open(f"{d}/with.json").read()
-dec = json.JSONDecoder(); reports = []; i = 0
-while i < len(text):
-    text_i = text[i:].lstrip()
-    if not text_i: break
-    r, n = dec.raw_decode(text_i); reports.append(r); i = len(text) - len(text_i) + n
-sc = [r["self_check"]["seconds"] for r in reports]
-mf = [r["manifest_seconds"] for r in reports]
-tot = [r["open_seconds"] + r["compute_seconds"] + r["self_check"]["seconds"] + r["write_seconds"] for r in reports]
-# write_seconds includes the manifest (written after the product).
-walls = {"with": 0, "without": 0}
-for line in open(f"{d}/walls"):
-    m, ms = line.split(); walls[m] += int(ms)
-print(f"| {label} | {', '.join(f'{x:.3f}' for x in sc)} | {', '.join(f'{x:.3f}' for x in tot)} | "
-      f"{100 * sum(sc) / sum(tot):.1f}% | {100 * sum(mf) / sum(tot):.1f}% | {walls['with'] / walls['without']:.3f} |")
+def load(name):
+    text = open(f"{d}/{name}.json").read()
+    dec = json.JSONDecoder(); out = []; i = 0
+    while True:
+        rest = text[i:].lstrip()
+        if not rest: return out
+        r, n = dec.raw_decode(rest); out.append(r); i = len(text) - len(rest) + n
+def work(r):
+    # open, compute (which now includes taking the factors' residues),
+    # the self-check's own seconds and the write, without the manifest.
+    sc = r["self_check"]["seconds"] if r.get("self_check") else 0.0
+    return r["open_seconds"] + r["compute_seconds"] + sc + r["write_seconds"] - r["manifest_seconds"]
+w, n = load("with"), load("without")
+sc = [r["self_check"]["seconds"] for r in w]
+mf = [r["manifest_seconds"] for r in w]
+tw, tn = [work(r) for r in w], [work(r) for r in n]
+print(f"| {label} | {', '.join(f'{x:.3f}' for x in tw)} | {', '.join(f'{x:.3f}' for x in tn)} | "
+      f"{100 * (sum(tw) / sum(tn) - 1):+.1f}% | {', '.join(f'{x:.3f}' for x in sc)} | "
+      f"{100 * sum(mf) / sum(tw):.1f}% |")
 PY
 done
 rm -f "$dir/c" "$dir/r.json"
