@@ -7,9 +7,8 @@
 //! can rerun exactly the same check. See [`crate::residue`] for the chance
 //! that a wrong product passes.
 
-use crate::format::{Format, Operand};
+use crate::format::{Format, Operand, Released};
 use crate::residue::{mul_mod, random_moduli, residues, signed, FIXED_MODULI};
-use crate::storage::LimbSource;
 use crate::{Error, Result};
 use serde::Serialize;
 use std::path::{Path, PathBuf};
@@ -60,20 +59,10 @@ pub struct CheckReport {
     pub manifest_agrees: Option<bool>,
 }
 
-/// Reads an operand once, releasing its pages behind the read.
-struct Streamed<'a>(&'a Operand);
-
-impl LimbSource for Streamed<'_> {
-    fn fill_limbs(&self, first: usize, out: &mut [u64]) {
-        self.0.read_limbs(first, out);
-        self.0.release_limbs(first, out.len());
-    }
-}
-
 /// The signed residues of an operand file modulo each of `moduli`.
 fn file_residues(path: &Path, format: Option<Format>, moduli: &[u64]) -> Result<Vec<u64>> {
     let op = Operand::open(path, format)?;
-    let r = residues(&Streamed(&op), op.limb_count(), op.radix(), moduli);
+    let r = residues(&Released(&op), op.limb_count(), op.radix(), moduli);
     Ok(r.iter()
         .zip(moduli)
         .map(|(&x, &p)| signed(x, op.is_negative(), p))

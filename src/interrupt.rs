@@ -34,16 +34,6 @@ pub fn requested() -> bool {
     REQUESTED.load(Ordering::Relaxed)
 }
 
-/// Requests a stop, as the signals do (tests).
-pub fn request() {
-    REQUESTED.store(true, Ordering::SeqCst);
-}
-
-/// Clears a request (tests).
-pub fn clear() {
-    REQUESTED.store(false, Ordering::SeqCst);
-}
-
 /// `Err(Error::Interrupted)` once a stop was requested: called at block
 /// boundaries. The message is completed by the caller that knows the state.
 pub fn check() -> Result<()> {

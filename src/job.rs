@@ -5,7 +5,7 @@ use crate::engine::{self, LimbSource};
 use crate::engine::{PassTime, Product, Timer};
 use crate::faults::FaultySpace;
 use crate::format::{
-    format_radix_compatible, write_operand_file, write_text_file_from, Format, Operand,
+    format_radix_compatible, write_operand_file, write_text_file_from, Format, Operand, Released,
 };
 use crate::ooc::{OutOfCore, Space};
 use crate::output::{ensure_distinct, AtomicOutput};
@@ -121,27 +121,6 @@ pub struct MulReport {
     pub manifest: PathBuf,
     /// Seconds spent writing it (hashing the product and its residues).
     pub manifest_seconds: f64,
-}
-
-impl LimbSource for Operand {
-    fn fill_limbs(&self, first: usize, out: &mut [u64]) {
-        self.read_limbs(first, out)
-    }
-}
-
-/// An operand read without keeping its pages resident: each read is
-/// followed by a release of the pages it touched (out-of-core plans).
-struct Released<'a>(&'a Operand);
-
-impl LimbSource for Released<'_> {
-    fn fill_limbs(&self, first: usize, out: &mut [u64]) {
-        self.0.read_limbs(first, out);
-        self.0.release_limbs(first, out.len());
-    }
-
-    fn prefetch_limbs(&self, first: usize, n: usize) {
-        self.0.prefetch_limbs(first, n);
-    }
 }
 
 /// True when both files are the same file (same device and inode).

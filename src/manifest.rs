@@ -4,9 +4,8 @@
 //! bit rot (`vastmul check --file NAME`) and `vastmul check A B NAME` can
 //! cross-check the product against what was written.
 
-use crate::format::{Format, Operand};
+use crate::format::{Format, Operand, Released};
 use crate::residue::{residues, signed, FIXED_MODULI};
-use crate::storage::LimbSource;
 use crate::{Error, Radix, Result};
 use serde::{Deserialize, Serialize};
 use std::path::{Path, PathBuf};
@@ -48,21 +47,20 @@ pub fn path_for(product: &Path) -> PathBuf {
     product.with_file_name(name)
 }
 
-/// Reads an operand once, releasing its pages behind the read.
-struct Streamed<'a>(&'a Operand);
-
-impl LimbSource for Streamed<'_> {
-    fn fill_limbs(&self, first: usize, out: &mut [u64]) {
-        self.0.read_limbs(first, out);
-        self.0.release_limbs(first, out.len());
-    }
-}
-
-/// Describes the file at `path` as its manifest would.
-pub fn describe(path: &Path, format: Option<Format>) -> Result<Manifest> {
-    let op = Operand::open(path, format)?;
-    let r = residues(&Streamed(&op), op.limb_count(), op.radix(), &FIXED_MODULI);
-    Ok(Manifest {
+/// What a manifest holds, once its parts are known; `residues` are those
+/// of the magnitude modulo [`FIXED_MODULI`].
+#[allow(clippy::too_many_arguments)]
+fn assemble(
+    path: &Path,
+    bytes: u64,
+    format: Format,
+    radix: Radix,
+    negative: bool,
+    (limbs, digits): (u64, u64),
+    blake3: blake3::Hash,
+    residues: &[u64],
+) -> Manifest {
+    Manifest {
         kind: KIND.into(),
         version: VERSION,
         file: path
@@ -70,19 +68,35 @@ pub fn describe(path: &Path, format: Option<Format>) -> Result<Manifest> {
             .unwrap_or_default()
             .to_string_lossy()
             .into_owned(),
-        bytes: op.file_len(),
-        format: op.format(),
-        radix: op.radix(),
-        negative: op.is_negative(),
-        limbs: op.limb_count() as u64,
-        digits: op.digit_count(),
-        blake3: op.content_hash().to_hex().to_string(),
+        bytes,
+        format,
+        radix,
+        negative,
+        limbs,
+        digits,
+        blake3: blake3.to_hex().to_string(),
         residues: FIXED_MODULI
             .iter()
-            .zip(&r)
-            .map(|(&p, &x)| [p, signed(x, op.is_negative(), p)])
+            .zip(residues)
+            .map(|(&p, &x)| [p, signed(x, negative, p)])
             .collect(),
-    })
+    }
+}
+
+/// Describes the file at `path` as its manifest would.
+pub fn describe(path: &Path, format: Option<Format>) -> Result<Manifest> {
+    let op = Operand::open(path, format)?;
+    let r = residues(&Released(&op), op.limb_count(), op.radix(), &FIXED_MODULI);
+    Ok(assemble(
+        path,
+        op.file_len(),
+        op.format(),
+        op.radix(),
+        op.is_negative(),
+        (op.limb_count() as u64, op.digit_count()),
+        op.content_hash(),
+        &r,
+    ))
 }
 
 /// The manifest of a product just written from `limbs` in RAM: the
@@ -103,34 +117,22 @@ pub fn describe_written(
         .map_err(|e| Error::io(path, e))?
         .finalize();
     let n = limbs.len();
-    let negative = negative && n > 0;
-    let r = residues(limbs, n, radix, &FIXED_MODULI);
     let digits = match (n, radix) {
         (0, _) => 1,
         (_, Radix::Decimal) => 19 * (n as u64 - 1) + limbs[n - 1].to_string().len() as u64,
         (_, Radix::Binary) => 16 * (n as u64 - 1) + format!("{:x}", limbs[n - 1]).len() as u64,
     };
-    Ok(Manifest {
-        kind: KIND.into(),
-        version: VERSION,
-        file: path
-            .file_name()
-            .unwrap_or_default()
-            .to_string_lossy()
-            .into_owned(),
+    let r = residues(limbs, n, radix, &FIXED_MODULI);
+    Ok(assemble(
+        path,
         bytes,
         format,
         radix,
-        negative,
-        limbs: n as u64,
-        digits,
-        blake3: hash.to_hex().to_string(),
-        residues: FIXED_MODULI
-            .iter()
-            .zip(&r)
-            .map(|(&p, &x)| [p, signed(x, negative, p)])
-            .collect(),
-    })
+        negative && n > 0,
+        (n as u64, digits),
+        hash,
+        &r,
+    ))
 }
 
 /// Writes the manifest of the product at `path`, atomically (temporary

@@ -20,14 +20,13 @@
 //! be recomputed from the operands.
 
 use crate::carry::{self, U192};
-use crate::engine::{PassTime, Product, Timer};
+use crate::engine::{Product, Timer};
 use crate::fourstep::{BlockLog, FourStep, Shape};
 use crate::plan::Plan;
 use crate::state::{Journal, Record};
 use crate::storage::{words_as_bytes, LimbSource, Store};
 use crate::Result;
 use std::collections::HashMap;
-use std::sync::atomic::{AtomicUsize, Ordering};
 use std::sync::Mutex;
 
 /// Step numbers in journal records.
@@ -75,7 +74,6 @@ struct StepLog<'a> {
     part: u16,
     done: Vec<bool>,
     journal: Option<&'a Journal>,
-    finished: AtomicUsize,
     /// Records appended in this run, for the caller's in-memory copy.
     new: &'a Mutex<Vec<Record>>,
 }
@@ -90,7 +88,6 @@ impl BlockLog for StepLog<'_> {
     }
 
     fn finished(&self, block: usize, hash: Option<blake3::Hash>) -> Result<()> {
-        self.finished.fetch_add(1, Ordering::Relaxed);
         if let (Some(j), Some(h)) = (self.journal, hash) {
             let r = Record {
                 step: self.step,
@@ -428,7 +425,6 @@ impl<'a> OutOfCore<'a> {
             part,
             done,
             journal: self.journal,
-            finished: AtomicUsize::new(0),
             new: &self.new,
         }
     }
@@ -639,13 +635,4 @@ enum StoreRef {
     A(usize),
     S,
     P,
-}
-
-/// Times of the passes an earlier run completed, reported as zero so the
-/// report lists every pass of the plan.
-pub fn skipped(name: &str) -> PassTime {
-    PassTime {
-        name: name.into(),
-        seconds: 0.0,
-    }
 }

@@ -411,17 +411,7 @@ fn pieces_plan(req: &Request, mut plan: Plan, piece: usize, shape: Option<Shape>
         ram += words(long + short);
     }
     if ram > req.memory {
-        return Err(Error::Resources {
-            what: format!(
-                "a memory budget of {} is too small for this product: the smallest plan needs {}",
-                crate::size::show_size(req.memory),
-                crate::size::show_size(ram)
-            ),
-            fix: format!(
-                "pass --memory {}MiB or more, or fewer --threads",
-                ram.div_ceil(1 << 20)
-            ),
-        });
+        return Err(budget_too_small(req.memory, ram));
     }
     if shape.is_some() {
         assert!(coefficient_bound_holds(short as u64, req.radix.max_limb()));
@@ -454,6 +444,22 @@ fn pieces_plan(req: &Request, mut plan: Plan, piece: usize, shape: Option<Shape>
         },
     ];
     Ok(plan)
+}
+
+/// The refusal of a budget below the smallest plan, naming that plan's
+/// need.
+fn budget_too_small(budget: u64, need: u64) -> Error {
+    Error::Resources {
+        what: format!(
+            "a memory budget of {} is too small for this product: the smallest plan needs {}",
+            crate::size::show_size(budget),
+            crate::size::show_size(need)
+        ),
+        fix: format!(
+            "pass --memory {}MiB or more, or fewer --threads",
+            need.div_ceil(1 << 20)
+        ),
+    }
 }
 
 /// Limbs per parallel read of an operand (the chunk released after it).
@@ -540,17 +546,7 @@ fn plan_out_of_core(req: &Request, mut plan: Plan, coefficients: usize) -> Resul
     }
     let need = ram(shape, window);
     if need > req.memory {
-        return Err(Error::Resources {
-            what: format!(
-                "a memory budget of {} is too small for this product: the smallest plan needs {}",
-                crate::size::show_size(req.memory),
-                crate::size::show_size(need)
-            ),
-            fix: format!(
-                "pass --memory {}MiB or more, or fewer --threads",
-                need.div_ceil(1 << 20)
-            ),
-        });
+        return Err(budget_too_small(req.memory, need));
     }
     let n_words = shape.len() as u64;
     let spare_words = n_words.max(product_limbs as u64);

@@ -186,7 +186,19 @@ fn horner_group<const N: usize>(h: &[Horner], limbs: &[u64]) -> [u64; N] {
 /// shift and an add.
 #[inline(always)]
 fn m61_step(r: u64, limb: u64, base_q: u64) -> u64 {
-    let s = r as u128 * base_q as u128 + limb as u128;
+    m61_fold(r as u128 * base_q as u128 + limb as u128)
+}
+
+/// [`m61_step`] in binary, where the base is 8 modulo q: a shift.
+#[inline(always)]
+fn m61_step8(r: u64, limb: u64) -> u64 {
+    m61_fold(((r as u128) << 3) + limb as u128)
+}
+
+/// `s mod q` for `s < 2^125`: 2^61 = 1 (mod q), so fold the high bits onto
+/// the low ones twice.
+#[inline(always)]
+fn m61_fold(s: u128) -> u64 {
     let folded = (s as u64 & MERSENNE_61) as u128 + (s >> 61);
     let f = (folded as u64 & MERSENNE_61) + (folded >> 61) as u64;
     if f >= MERSENNE_61 {
@@ -205,21 +217,9 @@ pub fn residue_m61<S: LimbSource + ?Sized>(src: &S, len: usize, radix: Radix) ->
         Radix::Binary => 8,
         Radix::Decimal => DEC_BASE % q,
     };
-    let mulq = |a: u64, b: u64| m61_step(a, 0, b);
-    let powq = |mut b: u64, mut e: u64| {
-        let mut r = 1u64;
-        while e > 0 {
-            if e & 1 == 1 {
-                r = mulq(r, b);
-            }
-            b = mulq(b, b);
-            e >>= 1;
-        }
-        r
-    };
     let quarter = CHUNK / 4;
-    let shift_quarter = powq(base_q, quarter as u64);
-    let shift_chunk = powq(base_q, CHUNK as u64);
+    let shift_quarter = m61_pow(base_q, quarter as u64);
+    let shift_chunk = m61_pow(base_q, CHUNK as u64);
     let parts: Vec<u64> = (0..len.div_ceil(CHUNK))
         .into_par_iter()
         .map_init(
@@ -350,16 +350,7 @@ impl<L: LimbSource + ?Sized> LimbSource for TapM61<'_, L> {
         self.inner.fill_limbs(first, out);
         let h = if self.base_q == 8 {
             // 2^64 = 8 (mod q): a shift instead of a multiplication.
-            out.iter().rev().fold(0u64, |r, &l| {
-                let s = ((r as u128) << 3) + l as u128;
-                let f = (s as u64 & MERSENNE_61) as u128 + (s >> 61);
-                let f = (f as u64 & MERSENNE_61) + (f >> 61) as u64;
-                if f >= MERSENNE_61 {
-                    f - MERSENNE_61
-                } else {
-                    f
-                }
-            })
+            out.iter().rev().fold(0u64, |r, &l| m61_step8(r, l))
         } else {
             out.iter()
                 .rev()

@@ -60,6 +60,28 @@ fn release_bytes(data: &Backing, offset: usize, len: usize) {
     let _ = unsafe { map.unchecked_advise_range(memmap2::UncheckedAdvice::DontNeed, offset, len) };
 }
 
+impl crate::storage::LimbSource for Operand {
+    fn fill_limbs(&self, first: usize, out: &mut [u64]) {
+        self.read_limbs(first, out)
+    }
+}
+
+/// An operand read without keeping its pages resident: each read is
+/// followed by a release of the pages it touched (out-of-core plans, and
+/// checks of files larger than RAM).
+pub struct Released<'a>(pub &'a Operand);
+
+impl crate::storage::LimbSource for Released<'_> {
+    fn fill_limbs(&self, first: usize, out: &mut [u64]) {
+        self.0.read_limbs(first, out);
+        self.0.release_limbs(first, out.len());
+    }
+
+    fn prefetch_limbs(&self, first: usize, n: usize) {
+        self.0.prefetch_limbs(first, n);
+    }
+}
+
 /// An operand file format.
 #[derive(Clone, Copy, Debug, PartialEq, Eq, Hash, Serialize, Deserialize)]
 #[serde(rename_all = "lowercase")]
