@@ -113,14 +113,20 @@ pub fn check(req: &CheckRequest) -> Result<CheckReport> {
         manifest_agrees,
     };
     if passed && manifest_agrees == Some(false) {
-        return Err(Error::Verify {
-            what: format!(
+        let manifest = crate::manifest::path_for(&req.c);
+        return Err(Error::verify(
+            format!(
                 "{} is the product, but its manifest {} records other residues: the manifest \
                  is stale or damaged",
                 req.c.display(),
-                crate::manifest::path_for(&req.c).display()
+                manifest.display()
             ),
-        });
+            format!(
+                "the product itself is right: restore {} from a copy, or delete it (check \
+                 --file then has nothing to check the product against)",
+                manifest.display()
+            ),
+        ));
     }
     if !passed {
         let failed: Vec<String> = report
@@ -133,14 +139,19 @@ pub fn check(req: &CheckRequest) -> Result<CheckReport> {
             Some(b) => format!("{} x {}", req.a.display(), b.display()),
             None => format!("the square of {}", req.a.display()),
         };
-        return Err(Error::Verify {
-            what: format!(
+        return Err(Error::verify(
+            format!(
                 "{} is not {what}: the residues differ modulo {} of {} primes (seed {seed})",
                 req.c.display(),
                 failed.join(", "),
                 report.moduli.len()
             ),
-        });
+            format!(
+                "check that these are the right files, in the order factors then product; if \
+                 they are, {} is damaged: recompute it with vastmul mul, or restore it from a copy",
+                req.c.display()
+            ),
+        ));
     }
     Ok(report)
 }

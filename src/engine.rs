@@ -2,7 +2,7 @@
 //! sources, and the convenience entry points on limb slices.
 
 use crate::carry::{self, U192};
-use crate::fourstep::{FourStep, NoLog, Shape};
+use crate::fourstep::{BlockLog, FourStep, Metered, NoLog, Shape};
 use crate::ooc::OutOfCore;
 use crate::pieces;
 use crate::plan::{self, Algorithm, Force, Plan, Request};
@@ -22,6 +22,10 @@ pub struct PassTime {
     pub name: String,
     /// Seconds it took.
     pub seconds: f64,
+    /// Bytes it reads, as the plan counts them (0 outside the plan).
+    pub read_bytes: u64,
+    /// Bytes it writes, as the plan counts them.
+    pub write_bytes: u64,
 }
 
 /// Collects pass times as the passes run.
@@ -29,18 +33,52 @@ pub struct PassTime {
 pub struct Timer {
     /// The passes timed so far, in order.
     pub passes: Vec<PassTime>,
+    /// Whether the passes report to the progress meter (the top-level job
+    /// only: the products of pieces run nested in a pass of their own).
+    pub report: bool,
 }
 
 impl Timer {
+    /// A timer whose passes also report their progress.
+    pub fn reporting() -> Self {
+        Timer {
+            passes: Vec::new(),
+            report: true,
+        }
+    }
+
     /// Runs `f` as the pass `name`, recording its wall time.
     pub fn pass<T>(&mut self, name: impl Into<String>, f: impl FnOnce() -> Result<T>) -> Result<T> {
+        let name = name.into();
+        if self.report {
+            crate::progress::METER.begin(&name);
+        }
         let start = std::time::Instant::now();
         let r = f();
+        if self.report {
+            match r {
+                Ok(_) => crate::progress::METER.end(),
+                Err(_) => crate::progress::METER.abandon(),
+            }
+        }
         self.passes.push(PassTime {
-            name: name.into(),
+            name,
             seconds: start.elapsed().as_secs_f64(),
+            read_bytes: 0,
+            write_bytes: 0,
         });
         r
+    }
+
+    /// The block log of a pass without checkpoints: metered when this
+    /// timer reports.
+    fn log(&self) -> &'static dyn BlockLog {
+        static METERED: Metered<'static> = Metered(&NoLog);
+        if self.report {
+            &METERED
+        } else {
+            &NoLog
+        }
     }
 }
 
@@ -131,21 +169,22 @@ where
     B: LimbSource + ?Sized,
 {
     let refs: Vec<&S> = stores_a.iter().collect();
+    let log = timer.log();
     timer.pass("columns of A, three primes", || {
-        fs.forward_columns(a, la, &[0, 1, 2], &refs, &[&NoLog, &NoLog, &NoLog])
+        fs.forward_columns(a, la, &[0, 1, 2], &refs, &[log, log, log])
     })?;
     let b_store = if square { None } else { spare };
     for (k, store) in stores_a.iter().enumerate() {
         if let Some(s) = b_store {
             timer.pass(format!("columns of B, prime {k}"), || {
-                fs.forward_columns(b, lb, &[k], &[s], &[&NoLog])
+                fs.forward_columns(b, lb, &[k], &[s], &[log])
             })?;
         }
         timer.pass(format!("rows and pointwise product, prime {k}"), || {
-            fs.rows(k, store, b_store, store, &NoLog)
+            fs.rows(k, store, b_store, store, log)
         })?;
         timer.pass(format!("inverse columns, prime {k}"), || {
-            fs.inverse_columns(k, store, store, &NoLog)
+            fs.inverse_columns(k, store, store, log)
         })?;
     }
     fs.check_zero_tail(&refs, la + lb - 1)
@@ -191,14 +230,21 @@ where
         None => WordBuf::zeroed(plan.product_limbs),
     };
     out.truncate(plan.product_limbs);
+    let report = timer.report;
     timer.pass("CRT and carry", || {
         let failure = std::sync::Mutex::new(None);
+        if report {
+            crate::progress::METER.add_units(count as u64, 0);
+        }
         carry::propagate(
             count,
             |first, dst: &mut [U192]| {
                 let mut tmp = Default::default();
                 if let Err(e) = fs.coefficients(&a_refs, first, dst, &mut tmp) {
                     *failure.lock().unwrap() = Some(e);
+                }
+                if report {
+                    crate::progress::METER.advance(dst.len() as u64);
                 }
             },
             plan.radix,

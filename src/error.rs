@@ -67,7 +67,8 @@ pub enum Error {
     /// A verification (residue or hash) failed.
     #[error("verification failed: {what}")]
     Verify {
-        /// What did not match.
+        /// What did not match, and then the fix line where the place that
+        /// found it knows one (see [`Error::verify`]).
         what: String,
     },
     /// Stopped by SIGINT or SIGTERM at a block boundary, state saved.
@@ -79,7 +80,7 @@ pub enum Error {
         resume: String,
     },
     /// An operating-system I/O error on a named file.
-    #[error("{path}: {source}")]
+    #[error("{path}: {source}\n  fix: {}", io_fix(source))]
     Io {
         /// The file being read or written.
         path: PathBuf,
@@ -92,6 +93,23 @@ fn offset_text(offset: Option<u64>) -> String {
     match offset {
         Some(o) => format!(" (at byte offset {o})"),
         None => String::new(),
+    }
+}
+
+/// What to do about an I/O error that reached the user without a more
+/// specific message: the system's words say what failed, not what to do.
+fn io_fix(e: &std::io::Error) -> &'static str {
+    match (e.kind(), e.raw_os_error()) {
+        (_, Some(libc::ENOSPC | libc::EDQUOT)) => {
+            "free space on that disk, or choose a path on a disk with more room, then rerun"
+        }
+        (_, Some(libc::EROFS)) | (std::io::ErrorKind::PermissionDenied, _) => {
+            "make that path writable, or choose one in a writable directory, then rerun"
+        }
+        (std::io::ErrorKind::NotFound, _) => {
+            "check that the path exists and was not removed while vastmul ran, then rerun"
+        }
+        _ => "check the disk and the path named above, then rerun the same command",
     }
 }
 
@@ -145,6 +163,14 @@ impl Error {
         }
     }
 
+    /// An [`Error::Verify`] whose message ends with a fix line, laid out as
+    /// the other variants lay out theirs.
+    pub fn verify(what: impl Into<String>, fix: impl Into<String>) -> Self {
+        Error::Verify {
+            what: format!("{}\n  fix: {}", what.into(), fix.into()),
+        }
+    }
+
     /// Shorthand for an [`Error::Io`].
     pub fn io(path: impl Into<PathBuf>, source: std::io::Error) -> Self {
         Error::Io {
@@ -156,3 +182,38 @@ impl Error {
 
 /// Result type of the library.
 pub type Result<T> = std::result::Result<T, Error>;
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn io_errors_end_with_a_fix_that_suits_them() {
+        let full = Error::io("out.txt", std::io::Error::from_raw_os_error(libc::ENOSPC));
+        let text = full.to_string();
+        assert!(text.starts_with("out.txt: "), "{text}");
+        assert!(text.contains("\n  fix: free space"), "{text}");
+        let ro = Error::io("out.txt", std::io::Error::from_raw_os_error(libc::EROFS));
+        assert!(
+            ro.to_string().contains("fix: make that path writable"),
+            "{ro}"
+        );
+        let gone = Error::io("x", std::io::Error::from(std::io::ErrorKind::NotFound));
+        assert!(
+            gone.to_string().contains("fix: check that the path exists"),
+            "{gone}"
+        );
+        let other = Error::io("x", std::io::Error::other("boom"));
+        assert!(other.to_string().contains("fix: check the disk"), "{other}");
+    }
+
+    #[test]
+    fn verify_errors_carry_their_fix_line() {
+        let e = Error::verify("c.txt is not a x b", "recompute it");
+        assert_eq!(
+            e.to_string(),
+            "verification failed: c.txt is not a x b\n  fix: recompute it"
+        );
+        assert_eq!(e.exit_code(), exit::VERIFY);
+    }
+}

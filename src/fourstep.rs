@@ -75,12 +75,49 @@ pub trait BlockLog: Sync {
     fn finished(&self, _block: usize, _hash: Option<blake3::Hash>) -> Result<()> {
         Ok(())
     }
+
+    /// Called when a pass over `blocks` blocks begins, `already` of them
+    /// done by an earlier run.
+    fn started(&self, _blocks: usize, _already: usize) {}
 }
 
 /// The log of a run that keeps no checkpoints.
 pub struct NoLog;
 
 impl BlockLog for NoLog {}
+
+/// A log that also reports its blocks to the progress meter; only the
+/// top-level job wraps its logs in it, so nested products stay silent.
+pub struct Metered<'a>(pub &'a dyn BlockLog);
+
+impl BlockLog for Metered<'_> {
+    fn done(&self, block: usize) -> bool {
+        self.0.done(block)
+    }
+
+    fn wants_hash(&self) -> bool {
+        self.0.wants_hash()
+    }
+
+    fn finished(&self, block: usize, hash: Option<blake3::Hash>) -> Result<()> {
+        self.0.finished(block, hash)?;
+        crate::progress::METER.advance(1);
+        Ok(())
+    }
+
+    fn started(&self, blocks: usize, already: usize) {
+        self.0.started(blocks, already);
+        crate::progress::METER.add_units(blocks as u64, already as u64);
+    }
+}
+
+/// Tells each log that a pass over `blocks` blocks begins.
+fn announce(logs: &[&dyn BlockLog], blocks: usize) {
+    for log in logs {
+        let already = (0..blocks).filter(|&b| log.done(b)).count();
+        log.started(blocks, already);
+    }
+}
 
 /// The BLAKE3 of a buffer of words, when the log wants one.
 fn digest(log: &dyn BlockLog, words: &[u64]) -> Option<blake3::Hash> {
@@ -230,6 +267,7 @@ impl FourStep {
         L: LimbSource + ?Sized,
     {
         let Shape { rows, cols, lanes } = self.shape;
+        announce(logs, cols / lanes);
         (0..cols / lanes).into_par_iter().try_for_each_init(
             || (vec![0u64; rows * lanes], vec![0u64; rows * lanes]),
             |(raw, buf), block| {
@@ -290,6 +328,7 @@ impl FourStep {
         let Shape { rows, cols, .. } = self.shape;
         let t = &self.tables[k];
         let m = &t.modulus;
+        announce(&[log], rows);
         (0..rows).into_par_iter().try_for_each_init(
             || RowBuffers {
                 a: vec![0; cols],
@@ -350,6 +389,7 @@ impl FourStep {
         let Shape { rows, cols, lanes } = self.shape;
         let t = &self.tables[k];
         let store = src;
+        announce(&[log], cols / lanes);
         (0..cols / lanes).into_par_iter().try_for_each_init(
             || vec![0u64; rows * lanes],
             |buf, block| {
@@ -448,13 +488,15 @@ impl FourStep {
         self.coefficients(stores, first, &mut out, &mut tmp)?;
         match out.iter().position(|v| *v != [0, 0, 0]) {
             None => Ok(()),
-            Some(i) => Err(Error::Verify {
-                what: format!(
+            Some(i) => Err(Error::verify(
+                format!(
                     "transform consistency: coefficient {} beyond the product is not zero; \
                      memory or scratch data was corrupted",
                     first + i
                 ),
-            }),
+                "rerun (with --restart for an out-of-core run); if it fails again, suspect \
+                 the machine's memory or disk, and please report it",
+            )),
         }
     }
 }

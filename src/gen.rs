@@ -94,8 +94,8 @@ pub fn random_text(digits: u64, seed: u64, radix: Radix) -> Vec<u8> {
 pub fn generate(target: &Path, digits: u64, seed: u64, radix: Radix, force: bool) -> Result<()> {
     if digits == 0 {
         return Err(Error::usage(
-            "a generated operand needs at least one digit; 0 digits were requested",
-            "ask for 1 or more digits",
+            "--digits 0: a generated operand needs at least one digit",
+            "pass --digits 1 or more",
         ));
     }
     let mut out = AtomicOutput::create(target, force)?;

@@ -10,6 +10,7 @@ use crate::format::{
 use crate::ooc::{OutOfCore, Space};
 use crate::output::{ensure_distinct, AtomicOutput};
 use crate::plan::{self, Algorithm, Force, Plan, Request};
+use crate::progress::{phase, METER};
 use crate::residue::{mul_mod, residue_m61, signed, ResidueTap, TapM61, MERSENNE_61};
 use crate::scratch::free_space;
 use crate::scratch::FileSpace;
@@ -83,6 +84,8 @@ pub enum Tamper {
 /// product is renamed into place.
 #[derive(Clone, Debug, Serialize)]
 pub struct SelfCheck {
+    /// True: a product that fails the check is an error, never a report.
+    pub passed: bool,
     /// The prime, 2^61 - 1.
     pub modulus: u64,
     /// Signed residues of A, B and the product.
@@ -121,6 +124,19 @@ pub struct MulReport {
     pub manifest: PathBuf,
     /// Seconds spent writing it (hashing the product and its residues).
     pub manifest_seconds: f64,
+    /// What the manifest records: size, BLAKE3 and residues of the product.
+    pub product: crate::manifest::Manifest,
+    /// The operands' identities and BLAKE3, when the run hashed them (out
+    /// of core, for its resumable state); empty otherwise.
+    pub operands: Vec<crate::state::OperandId>,
+    /// True when the run continued from an interrupted run's state.
+    pub resumed: bool,
+    /// Wall time of the whole job.
+    pub wall_seconds: f64,
+    /// Peak resident memory of the process, from the kernel.
+    pub peak_rss_bytes: Option<u64>,
+    /// Bytes the process read and wrote, from the kernel.
+    pub io: Option<crate::usage::ProcessIo>,
 }
 
 /// True when both files are the same file (same device and inode).
@@ -227,6 +243,20 @@ fn output_dir(output: &Path) -> PathBuf {
     }
 }
 
+/// Refuses a scratch directory that is missing or not a directory.
+fn require_dir(dir: &Path) -> Result<()> {
+    if dir.is_dir() {
+        return Ok(());
+    }
+    Err(Error::usage(
+        format!(
+            "scratch directory {} does not exist or is not a directory",
+            dir.display()
+        ),
+        "create it, or pass --scratch with an existing directory",
+    ))
+}
+
 /// The directory scratch files go to: `--scratch`, else the output's
 /// directory (so the final rename stays on one file system). It must exist
 /// and have room for `needed` bytes.
@@ -235,15 +265,7 @@ fn scratch_dir(opts: &MulOptions, needed: u64) -> Result<PathBuf> {
         Some(d) => d.clone(),
         None => output_dir(&opts.output),
     };
-    if !dir.is_dir() {
-        return Err(Error::usage(
-            format!(
-                "scratch directory {} does not exist or is not a directory",
-                dir.display()
-            ),
-            "create it, or pass --scratch with an existing directory",
-        ));
-    }
+    require_dir(&dir)?;
     let probe = dir.join(format!(".vastmul-probe-{}", std::process::id()));
     match std::fs::OpenOptions::new()
         .write(true)
@@ -310,6 +332,7 @@ fn state_bytes(state: &StateDir) -> u64 {
 /// The state of an out-of-core run: found and checked, or created fresh.
 struct RunState {
     dir: StateDir,
+    operands: Vec<crate::state::OperandId>,
     journal: Journal,
     records: Vec<Record>,
     notes: Vec<String>,
@@ -330,15 +353,18 @@ fn open_state(
         state.remove()?;
     }
     let t = Instant::now();
-    let mut operands = vec![identify(&opts.a, &ops.a)?];
-    if let Some(b) = &ops.b {
-        operands.push(identify(&opts.b, b)?);
-    }
+    let operands = phase("hash the operands for the resumable state", || {
+        let mut operands = vec![identify(&opts.a, &ops.a)?];
+        if let Some(b) = &ops.b {
+            operands.push(identify(&opts.b, b)?);
+        }
+        Ok::<_, Error>(operands)
+    })?;
     let identify_seconds = t.elapsed().as_secs_f64();
     let manifest = Manifest {
         version: STATE_VERSION,
         tool: env!("CARGO_PKG_VERSION").into(),
-        operands,
+        operands: operands.clone(),
         plan: plan.clone(),
         output: opts.output.clone(),
         out_format,
@@ -406,6 +432,7 @@ fn open_state(
     }
     Ok(RunState {
         dir: state,
+        operands,
         journal,
         records: load.records,
         notes,
@@ -447,7 +474,9 @@ fn with_state_note(e: Error, state: &StateDir, position: &str) -> Error {
 /// Multiplies two operand files into an output file.
 pub fn multiply_files(opts: &MulOptions) -> Result<MulReport> {
     let started = Instant::now();
-    let ops = Operands::open(&opts.a, &opts.b, opts.in_format)?;
+    let ops = phase("read and validate the operands", || {
+        Operands::open(&opts.a, &opts.b, opts.in_format)
+    })?;
     let (a, b) = (&ops.a, ops.b());
     let radix = a.radix();
     let out_format = opts.out_format.unwrap_or(a.format());
@@ -465,9 +494,15 @@ pub fn multiply_files(opts: &MulOptions) -> Result<MulReport> {
     }
     let negative = a.is_negative() != b.is_negative();
     ensure_distinct(&opts.output, &[&opts.a, &opts.b])?;
+    // Only out-of-core plans use it, but a mistyped --scratch should show on
+    // the first run, not on the day a product outgrows the budget.
+    if let Some(dir) = &opts.scratch {
+        require_dir(dir)?;
+    }
     let mut out = AtomicOutput::create(&opts.output, opts.force)?;
     let memory = opts.memory.unwrap_or_else(default_budget);
     let plan = plan::plan(&ops.request(opts.threads, opts.algorithm, memory))?;
+    METER.start(&plan);
     // Room for the product beside its target, checked before any work.
     let product_bytes = match out_format {
         Format::Decimal => 19,
@@ -502,7 +537,7 @@ pub fn multiply_files(opts: &MulOptions) -> Result<MulReport> {
     let open_seconds = started.elapsed().as_secs_f64();
 
     let compute = Instant::now();
-    let mut timer = Timer::default();
+    let mut timer = Timer::reporting();
     if plan.release_inputs {
         a.expect_scattered_reads();
         b.expect_scattered_reads();
@@ -520,7 +555,7 @@ pub fn multiply_files(opts: &MulOptions) -> Result<MulReport> {
             let st = open_state(opts, &ops, &plan, out_format, &dir)?;
             identify_seconds = st.identify_seconds;
             for n in &st.notes {
-                eprintln!("vastmul: {n}");
+                METER.note(n.clone());
             }
             let files = FileSpace::kept(st.dir.path());
             let faulty;
@@ -546,22 +581,22 @@ pub fn multiply_files(opts: &MulOptions) -> Result<MulReport> {
             resume_notes.extend(resumed.problems.iter().cloned());
             let position = run.position();
             if !st.records.is_empty() {
-                eprintln!(
-                    "vastmul: resuming from {}: {position} ({} block(s) verified, {} dropped)",
+                METER.note(format!(
+                    "resuming from {}: {position} ({} block(s) verified, {} dropped)",
                     st.dir.path().display(),
                     resumed.kept_blocks,
                     resumed.dropped_blocks
-                );
+                ));
                 for p in &resumed.problems {
-                    eprintln!("vastmul: {p}");
+                    METER.note(p.clone());
                 }
                 resumed_at = Some(position.clone());
             } else {
-                eprintln!(
-                    "vastmul: out of core; the run's state is kept in {} until it completes, \
+                METER.note(format!(
+                    "out of core; the run's state is kept in {} until it completes, \
                      and an interrupted run resumes from it",
                     st.dir.path().display()
-                );
+                ));
             }
             let product = run
                 .run(&Released(a), &Released(b), &mut timer)
@@ -633,6 +668,7 @@ pub fn multiply_files(opts: &MulOptions) -> Result<MulReport> {
             }
         };
         self_check = Some(SelfCheck {
+            passed: false,
             modulus: p,
             residues: [ra, rb, rc.unwrap_or(0)],
             seconds: 0.0,
@@ -649,6 +685,8 @@ pub fn multiply_files(opts: &MulOptions) -> Result<MulReport> {
 
     let write = Instant::now();
     let target = opts.output.clone();
+    METER.begin("write the product");
+    METER.add_units(product.len() as u64, 0);
     match &product {
         Product::Ram(limbs) => write_operand_file(out.file(), out_format, radix, negative, limbs),
         Product::Disk { store, len } => write_text_file_from(
@@ -670,6 +708,7 @@ pub fn multiply_files(opts: &MulOptions) -> Result<MulReport> {
                 if let Some(t) = &tap {
                     t.add(first, dst);
                 }
+                METER.advance(dst.len() as u64);
                 Ok(())
             },
         ),
@@ -699,6 +738,10 @@ pub fn multiply_files(opts: &MulOptions) -> Result<MulReport> {
             },
         }
     })?;
+    if let Product::Ram(limbs) = &product {
+        METER.advance(limbs.len() as u64);
+    }
+    METER.end();
     if let (Some(t), Some(sc)) = (&tap, self_check.as_mut()) {
         let t0 = Instant::now();
         verify_self_check(sc, t.value(), negative && !product.is_empty())?;
@@ -710,28 +753,42 @@ pub fn multiply_files(opts: &MulOptions) -> Result<MulReport> {
     out.commit()?;
     // The manifest beside the product: read back from the file as written.
     let manifest_start = Instant::now();
-    let known = match &product {
-        Product::Ram(limbs) => Some(crate::manifest::describe_written(
-            &opts.output,
-            out_format,
-            radix,
-            negative,
-            limbs,
-        )?),
-        // Out of core the product is re-read in released windows.
-        Product::Disk { .. } => None,
-    };
-    crate::manifest::write_for(&opts.output, Some(out_format), known)?;
+    let product_manifest = phase("write the manifest", || {
+        let known = match &product {
+            Product::Ram(limbs) => Some(crate::manifest::describe_written(
+                &opts.output,
+                out_format,
+                radix,
+                negative,
+                limbs,
+            )?),
+            // Out of core the product is re-read in released windows.
+            Product::Disk { .. } => None,
+        };
+        crate::manifest::write_for(&opts.output, Some(out_format), known)
+    })?;
     let manifest_seconds = manifest_start.elapsed().as_secs_f64();
+    let mut operands = Vec::new();
     if let Some(st) = state {
         if !opts.keep_state {
             st.dir.remove()?;
         }
+        operands = st.operands;
     }
     timer.passes.push(PassTime {
         name: "write the product".into(),
         seconds: write.elapsed().as_secs_f64(),
+        read_bytes: 0,
+        write_bytes: 0,
     });
+    for t in &mut timer.passes {
+        if let Some(p) = plan.passes.iter().find(|p| p.name == t.name) {
+            t.read_bytes = p.read_bytes;
+            t.write_bytes = p.write_bytes;
+        }
+    }
+    METER.finish();
+    let resumed = resumed_at.is_some();
     Ok(MulReport {
         plan,
         out_format,
@@ -746,6 +803,12 @@ pub fn multiply_files(opts: &MulOptions) -> Result<MulReport> {
         self_check,
         manifest: crate::manifest::path_for(&opts.output),
         manifest_seconds,
+        product: product_manifest,
+        operands,
+        resumed,
+        wall_seconds: started.elapsed().as_secs_f64(),
+        peak_rss_bytes: crate::usage::peak_rss_bytes(),
+        io: crate::usage::process_io(),
     })
 }
 
@@ -756,17 +819,18 @@ fn verify_self_check(sc: &mut SelfCheck, magnitude: u64, negative: bool) -> Resu
     sc.residues[2] = signed(magnitude, negative, p);
     let expected = mul_mod(sc.residues[0], sc.residues[1], p);
     if sc.residues[2] == expected {
+        sc.passed = true;
         return Ok(());
     }
-    Err(Error::Verify {
-        what: format!(
+    Err(Error::verify(
+        format!(
             "self-check failed: modulo the prime {p} the product's residue is {:#x}, \
              but its factors give {expected:#x}; the product was not written. This points at \
-             a fault of the machine (memory, disk) or of vastmul: rerun (with --restart for an \
-             out-of-core run) and please report it",
+             a fault of the machine (memory, disk) or of vastmul",
             sc.residues[2]
         ),
-    })
+        "rerun (with --restart for an out-of-core run); if it fails again, please report it",
+    ))
 }
 
 /// Applies test damage to a computed product.

@@ -4,6 +4,7 @@
 use clap::{Parser, Subcommand, ValueEnum};
 use std::path::PathBuf;
 use std::process::ExitCode;
+use vastmul::display::{Display, Style};
 use vastmul::error::exit;
 use vastmul::format::Format;
 use vastmul::job::{multiply_files, MulOptions};
@@ -19,6 +20,9 @@ use vastmul::{Error, Radix};
 struct Cli {
     #[command(subcommand)]
     command: Command,
+    /// No progress display and no summary on stderr; errors still show.
+    #[arg(long, short, global = true)]
+    quiet: bool,
 }
 
 #[derive(Clone, Copy, ValueEnum)]
@@ -56,12 +60,19 @@ enum AlgorithmArg {
 
 #[derive(Subcommand)]
 enum Command {
-    /// Run the main job end to end on built-in seeded data and report.
-    #[command(after_help = "Example:\n  vastmul demo --digits 20000000")]
+    /// Run the main job end to end on built-in seeded data and report:
+    /// generate two operands, multiply them out of core under a small
+    /// memory budget, check the product from the files.
+    #[command(
+        after_help = "Examples:\n  vastmul demo\n  vastmul demo --digits 200000000 --memory 256MiB --dir demo-files --keep"
+    )]
     Demo {
         /// Digits of each generated operand.
-        #[arg(long, default_value_t = 20_000_000)]
+        #[arg(long, default_value_t = vastmul::demo::DEFAULT_DIGITS)]
         digits: u64,
+        /// Memory budget of the multiplication (as for `mul`).
+        #[arg(long, value_parser = parse_size_arg, default_value = "64MiB")]
+        memory: u64,
         /// Directory for the demo's files (default: a new temporary one).
         #[arg(long)]
         dir: Option<PathBuf>,
@@ -72,7 +83,7 @@ enum Command {
         #[arg(long)]
         force: bool,
         /// Worker threads (default: every core).
-        #[arg(long)]
+        #[arg(long, allow_negative_numbers = true)]
         threads: Option<usize>,
     },
     /// Multiply two operand files into a product file.
@@ -86,7 +97,7 @@ enum Command {
         #[arg(short, long)]
         output: PathBuf,
         /// Worker threads (default: every core).
-        #[arg(long)]
+        #[arg(long, allow_negative_numbers = true)]
         threads: Option<usize>,
         /// Operand format (default: detected from each file's content).
         #[arg(long, value_enum)]
@@ -144,7 +155,7 @@ enum Command {
         #[arg(long)]
         force: bool,
         /// Worker threads (default: every core).
-        #[arg(long)]
+        #[arg(long, allow_negative_numbers = true)]
         threads: Option<usize>,
     },
     /// Show an operand's format, sign, size and BLAKE3.
@@ -187,7 +198,7 @@ enum Command {
         #[arg(long, value_enum)]
         in_format: Option<FormatArg>,
         /// Worker threads (default: every core).
-        #[arg(long)]
+        #[arg(long, allow_negative_numbers = true)]
         threads: Option<usize>,
     },
     /// Print the plan for a product without computing it.
@@ -198,7 +209,7 @@ enum Command {
         /// Second operand file.
         b: PathBuf,
         /// Worker threads (default: every core).
-        #[arg(long)]
+        #[arg(long, allow_negative_numbers = true)]
         threads: Option<usize>,
         /// Operand format (default: detected).
         #[arg(long, value_enum)]
@@ -236,48 +247,48 @@ fn set_threads(threads: Option<usize>) -> Result<usize, Error> {
     Ok(n)
 }
 
+/// Runs `f` with the progress display on stderr, cleared before it returns.
+fn with_progress<T>(quiet: bool, f: impl FnOnce() -> T) -> T {
+    let display = Display::start(Style::for_stderr(quiet));
+    let r = f();
+    display.finish();
+    r
+}
+
 fn run(cli: Cli) -> Result<(), Error> {
+    let quiet = cli.quiet;
     match cli.command {
         Command::Demo {
             digits,
+            memory,
             dir,
             keep,
             force,
             threads,
         } => {
             let threads = set_threads(threads)?;
+            vastmul::interrupt::install();
             let temporary = dir.is_none();
             let dir = dir.unwrap_or_else(|| {
                 std::env::temp_dir().join(format!("vastmul-demo-{}", std::process::id()))
             });
             println!("vastmul demo: an orbit-survey team multiplies its two ledger integers");
-            println!(
-                "  generating two {digits}-digit decimal operands in {}",
-                dir.display()
-            );
-            let r = vastmul::demo::run(&dir, digits, threads, force || temporary)?;
-            println!("  generated in {:.2} s", r.gen_seconds);
-            println!(
-                "  multiplied with {:?} on {} threads: {:.2} s (open {:.2}, compute {:.2}, write {:.2})",
-                r.mul.plan.algorithm,
+            println!("  files in {}", dir.display());
+            let opts = vastmul::demo::DemoOptions {
+                dir: dir.clone(),
+                digits,
+                memory,
                 threads,
-                r.mul.open_seconds + r.mul.compute_seconds + r.mul.write_seconds,
-                r.mul.open_seconds,
-                r.mul.compute_seconds,
-                r.mul.write_seconds
-            );
-            println!(
-                "  product: {} ({} limbs of radix 10^19)",
-                r.files[2].display(),
-                r.mul.product_limbs
-            );
-            println!(
-                "  check: east x west = product modulo {} primes (seed {}): OK",
-                r.check.moduli.len(),
-                r.check.seed
-            );
+                force: force || temporary,
+            };
+            let r = with_progress(quiet, || vastmul::demo::run(&opts));
             if temporary && !keep {
-                std::fs::remove_dir_all(&dir).map_err(|e| Error::io(&dir, e))?;
+                let _ = std::fs::remove_dir_all(&dir);
+            }
+            for line in vastmul::demo::describe(&r?) {
+                println!("{line}");
+            }
+            if temporary && !keep {
                 println!(
                     "  removed {} (pass --keep to keep the files)",
                     dir.display()
@@ -326,13 +337,13 @@ fn run(cli: Cli) -> Result<(), Error> {
                 tamper: None,
                 faults: None,
             };
-            let report = multiply_files(&opts)?;
+            let report = with_progress(quiet, || multiply_files(&opts))?;
             if json {
                 println!(
                     "{}",
                     serde_json::to_string_pretty(&report).expect("report serializes")
                 );
-            } else {
+            } else if !quiet {
                 eprintln!(
                     "wrote {} ({} limbs of radix {}) in {:.3} s: open {:.3} s, compute {:.3} s, write {:.3} s",
                     opts.output.display(),
@@ -491,12 +502,35 @@ fn run(cli: Cli) -> Result<(), Error> {
     Ok(())
 }
 
+impl Cli {
+    /// Whether the command reports as JSON on stdout.
+    fn json(&self) -> bool {
+        match &self.command {
+            Command::Mul { json, .. }
+            | Command::Info { json, .. }
+            | Command::Check { json, .. }
+            | Command::Plan { json, .. } => *json,
+            Command::Demo { .. } | Command::Gen { .. } => false,
+        }
+    }
+}
+
 fn main() -> ExitCode {
     let cli = Cli::parse();
+    let json = cli.json();
     match run(cli) {
         Ok(()) => ExitCode::from(exit::OK as u8),
         Err(e) => {
             eprintln!("vastmul: error: {e}");
+            if json {
+                // A script reading stdout learns the outcome there too.
+                let report = serde_json::json!({
+                    "ok": false,
+                    "exit_code": e.exit_code(),
+                    "error": e.to_string(),
+                });
+                println!("{report:#}");
+            }
             ExitCode::from(e.exit_code() as u8)
         }
     }

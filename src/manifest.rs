@@ -240,13 +240,19 @@ pub fn check_file(path: &Path, format: Option<Format>) -> Result<Manifest> {
     if diff.is_empty() {
         Ok(now)
     } else {
-        Err(Error::Verify {
-            what: format!(
+        Err(Error::verify(
+            format!(
                 "{} does not match its manifest {}: {}",
                 path.display(),
                 path_for(path).display(),
                 diff.join("; ")
             ),
-        })
+            format!(
+                "the file changed since it was written: restore it from a copy, or recompute \
+                 it with vastmul mul; vastmul check A B {} tells whether the file or the \
+                 manifest is wrong",
+                path.display()
+            ),
+        ))
     }
 }

@@ -115,7 +115,20 @@ impl AtomicOutput {
                         "choose an output path in a writable directory",
                     ))
                 }
-                Err(e) => return Err(Error::io(&temp, e)),
+                // The temporary name is ours, not the user's: the message
+                // names the target they asked for and the directory at fault.
+                Err(e) => {
+                    let fix = if e.raw_os_error() == Some(libc::EROFS) {
+                        "the file system there is mounted read-only: choose an output path on a writable one"
+                    } else {
+                        "choose an output path in a writable directory on a disk with room"
+                    };
+                    return Err(Error::output(
+                        target,
+                        format!("cannot create files in {}: {e}", dir.display()),
+                        fix,
+                    ));
+                }
             }
         }
     }

@@ -180,6 +180,7 @@ where
     let mut workers: Vec<Worker> = (0..batch).map(|_| Worker::new(piece, ls, shape)).collect();
     let mut overlap = vec![0u64; ls];
     let mut next = 0;
+    crate::progress::METER.add_units(count as u64, 0);
     while next < count {
         let here = batch.min(count - next);
         let span = |i: usize| {
@@ -210,6 +211,7 @@ where
             }
         }
         next += here;
+        crate::progress::METER.advance(here as u64);
     }
     Ok(match sink {
         Sink::Ram(w) => Product::Ram(w),

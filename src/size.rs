@@ -37,7 +37,15 @@ pub fn parse_size(text: &str) -> Result<u64> {
         "mib" => 1 << 20,
         "gib" => 1 << 30,
         "tib" => 1 << 40,
-        _ => return Err(bad("unknown unit")),
+        _ if unit.starts_with(char::is_whitespace) => {
+            return Err(bad("a space separates the number from its unit"))
+        }
+        _ => {
+            return Err(bad(&format!(
+                "unknown unit {unit:?}; the units are B, K, KB, M, MB, G, GB, T, TB, KiB, MiB, \
+                 GiB, TiB"
+            )))
+        }
     };
     let (int, frac) = number.split_once('.').unwrap_or((number, ""));
     let int: u64 = int.parse().map_err(|_| bad("number too large"))?;
@@ -118,6 +126,10 @@ mod tests {
             let e = parse_size(bad).unwrap_err().to_string();
             assert!(e.contains("512MiB"), "{bad}: {e}");
         }
+        let e = parse_size("4 GB").unwrap_err().to_string();
+        assert!(e.contains("a space separates"), "{e}");
+        let e = parse_size("12XB").unwrap_err().to_string();
+        assert!(e.contains("unknown unit"), "{e}");
     }
 
     #[test]

@@ -267,20 +267,49 @@ fn existing_output_and_output_equal_to_input_are_refused() {
 fn demo_runs_and_verifies() {
     let t = tempfile::tempdir().unwrap();
     let dir = t.path().join("demo");
-    let o = vastmul(
-        &["demo", "--digits", "200000", "--dir", dir.to_str().unwrap()],
-        t.path(),
-    );
+    let args = [
+        "demo",
+        "--digits",
+        "2000000",
+        "--memory",
+        "16MiB",
+        "--dir",
+        dir.to_str().unwrap(),
+    ];
+    let o = vastmul(&args, t.path());
     assert!(o.status.success(), "{}", stderr(&o));
     let text = String::from_utf8_lossy(&o.stdout);
-    assert!(text.contains("OK"), "{text}");
-    let product = std::fs::read(dir.join("ledger-product.txt")).unwrap();
-    assert!(product.len() >= 399_999 && product.len() <= 400_001);
-    // a second run into the same directory refuses to replace the files
-    let o = vastmul(
-        &["demo", "--digits", "200000", "--dir", dir.to_str().unwrap()],
-        t.path(),
+    assert!(
+        text.contains("plan: out of core under a 16.0 MiB"),
+        "{text}"
     );
+    assert!(text.contains("self-check"), "{text}");
+    assert!(text.contains("modulo 5 primes"), "{text}");
+    assert!(text.trim_end().ends_with("OK"), "{text}");
+    let product = std::fs::read(dir.join("ledger-product.txt")).unwrap();
+    assert!(product.len() >= 3_999_999 && product.len() <= 4_000_001);
+    // The product's leading digits agree with the operands' (the product of
+    // the two 16-digit prefixes, to within its rounding).
+    let prefix = |name: &str| -> f64 {
+        let text = std::fs::read(dir.join(name)).unwrap();
+        std::str::from_utf8(&text[..16]).unwrap().parse().unwrap()
+    };
+    let lead = prefix("ledger-east.txt") * prefix("ledger-west.txt");
+    let digits = format!("{lead:.0}");
+    let shown = std::str::from_utf8(&product[..6]).unwrap();
+    assert_eq!(
+        shown,
+        &digits[..6],
+        "product {shown}... vs prefixes {digits}"
+    );
+    // No scratch or state is left beside the files.
+    let names: Vec<String> = std::fs::read_dir(&dir)
+        .unwrap()
+        .map(|e| e.unwrap().file_name().to_string_lossy().into_owned())
+        .collect();
+    assert_eq!(names.len(), 4, "{names:?}");
+    // a second run into the same directory refuses to replace the files
+    let o = vastmul(&args, t.path());
     assert_eq!(o.status.code(), Some(4), "{}", stderr(&o));
 }
 

@@ -170,7 +170,20 @@ impl std::fmt::Debug for Backing {
 
 fn open_error(path: &Path, e: &io::Error) -> Error {
     match e.kind() {
-        io::ErrorKind::NotFound => Error::input(path, None, "no such file", "check the path"),
+        // A link whose target is gone looks like a present file in a
+        // listing; saying "no such file" alone would send the user in circles.
+        io::ErrorKind::NotFound => match std::fs::read_link(path) {
+            Ok(to) => Error::input(
+                path,
+                None,
+                format!(
+                    "is a symbolic link to {}, which does not exist",
+                    to.display()
+                ),
+                "point the link at the operand file, or give the file's own path",
+            ),
+            Err(_) => Error::input(path, None, "no such file", "check the path"),
+        },
         io::ErrorKind::PermissionDenied => Error::input(
             path,
             None,

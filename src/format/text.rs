@@ -278,7 +278,12 @@ fn describe_bad_byte(bytes: &[u8], at: usize, end: usize, expected: Expected) ->
                 Expected::HexByLetters => {
                     "remove it (the file was read as hexadecimal because it holds the letters a-f)"
                 }
-                _ => "remove it",
+                Expected::Decimal => "remove it: decimal text holds only the digits 0-9",
+                Expected::Hex => "remove it: hexadecimal digits are 0-9, a-f and A-F",
+                Expected::Either => {
+                    "remove it: an operand is an optional '-', then digits 0-9 (or 0-9 and a-f \
+                     in hexadecimal), then at most one newline"
+                }
             };
             (what, fix.into())
         }

@@ -1,0 +1,227 @@
+//! The progress display as a person sees it: bars under a pseudo-terminal
+//! (run through `script`, which gives the child a terminal of its own),
+//! timestamped lines when stderr is a pipe, and silence with `--quiet`.
+
+use std::path::Path;
+use std::process::{Command, Output};
+
+const BIN: &str = env!("CARGO_BIN_EXE_vastmul");
+
+/// Two operands large enough that an out-of-core run under 16 MiB lasts
+/// long enough for several redraws (about a second here).
+fn operands(dir: &Path) {
+    for (name, seed) in [("a.txt", "5"), ("b.txt", "6")] {
+        let o = Command::new(BIN)
+            .args(["gen", "--digits", "4000000", "--seed", seed, "-o", name])
+            .current_dir(dir)
+            .output()
+            .unwrap();
+        assert!(o.status.success(), "{}", String::from_utf8_lossy(&o.stderr));
+    }
+}
+
+const MUL: &[&str] = &["mul", "a.txt", "b.txt", "-o", "c.txt", "--memory", "16MiB"];
+
+/// Runs `args` under a pseudo-terminal; `None` when `script` is missing.
+fn under_pty(dir: &Path, args: &[&str]) -> Option<Output> {
+    // A known width, so that the screen below matches the terminal's.
+    let line = std::iter::once("stty cols 100 rows 40;")
+        .chain(std::iter::once(BIN))
+        .chain(args.iter().copied())
+        .collect::<Vec<_>>()
+        .join(" ");
+    Command::new("script")
+        .args(["-qec", &line, "/dev/null"])
+        .current_dir(dir)
+        .env("TERM", "xterm")
+        .output()
+        .ok()
+}
+
+/// The terminal's final screen lines: carriage returns and cursor moves
+/// rewrite lines, erase-line escapes clear them.
+fn screen(raw: &str) -> Vec<String> {
+    let mut lines: Vec<Vec<char>> = vec![Vec::new()];
+    let (mut row, mut col) = (0usize, 0usize);
+    let mut chars = raw.chars().peekable();
+    while let Some(c) = chars.next() {
+        match c {
+            '\r' => col = 0,
+            '\n' => {
+                row += 1;
+                col = 0;
+            }
+            '\u{1b}' if chars.peek() == Some(&'[') => {
+                chars.next();
+                let mut seq = String::new();
+                for d in chars.by_ref() {
+                    seq.push(d);
+                    if d.is_ascii_alphabetic() {
+                        break;
+                    }
+                }
+                let (arg, op) = seq.split_at(seq.len().saturating_sub(1));
+                let n: usize = arg.parse().unwrap_or(1);
+                match op {
+                    "A" => row = row.saturating_sub(n),
+                    "B" => row += n,
+                    "K" => {
+                        if let Some(l) = lines.get_mut(row) {
+                            l.clear();
+                        }
+                    }
+                    _ => {}
+                }
+            }
+            c => {
+                while lines.len() <= row {
+                    lines.push(Vec::new());
+                }
+                let l = &mut lines[row];
+                while l.len() < col {
+                    l.push(' ');
+                }
+                if col < l.len() {
+                    l[col] = c;
+                } else {
+                    l.push(c);
+                }
+                col += 1;
+            }
+        }
+        while lines.len() <= row {
+            lines.push(Vec::new());
+        }
+    }
+    lines
+        .into_iter()
+        .map(|l| l.into_iter().collect::<String>().trim_end().to_string())
+        .filter(|l| !l.is_empty())
+        .collect()
+}
+
+#[test]
+fn bars_appear_on_a_terminal_and_are_cleared_at_the_end() {
+    let t = tempfile::tempdir().unwrap();
+    operands(t.path());
+    let Some(o) = under_pty(t.path(), MUL) else {
+        println!("skipped: `script` is not installed, no pseudo-terminal to test with");
+        return;
+    };
+    assert!(o.status.success(), "{o:?}");
+    let raw = String::from_utf8_lossy(&o.stdout);
+    assert!(!raw.contains("panicked at"), "{raw}");
+    // What was drawn: both bars, with a pass position, rates and ETAs.
+    assert!(raw.contains("overall ["), "no overall bar in {raw}");
+    assert!(raw.contains("pass 1/12 ["), "no pass bar in {raw}");
+    assert!(raw.contains("ETA"), "{raw}");
+    assert!(
+        raw.contains("\u{1b}[2K"),
+        "bars are redrawn in place: {raw}"
+    );
+    // What stays on the screen: the completed passes, then the summary as
+    // the last line, with no bar left behind.
+    let shown = screen(&raw);
+    let last = shown.last().expect("something on screen");
+    assert!(
+        last.starts_with("wrote c.txt"),
+        "last line {last:?} of {shown:#?}"
+    );
+    assert!(
+        !shown.iter().any(|l| l.contains("overall [")),
+        "a bar was left on the screen: {shown:#?}"
+    );
+    assert!(
+        shown
+            .iter()
+            .any(|l| l.contains("done pass 12/12 write the product")),
+        "{shown:#?}"
+    );
+    assert!(Path::new(&t.path().join("c.txt")).exists());
+}
+
+#[test]
+fn plain_timestamped_lines_without_a_terminal() {
+    let t = tempfile::tempdir().unwrap();
+    operands(t.path());
+    let o = Command::new(BIN)
+        .args(MUL)
+        .current_dir(t.path())
+        .env("VASTMUL_PROGRESS_EVERY", "0.05")
+        .output()
+        .unwrap();
+    assert!(o.status.success(), "{o:?}");
+    let err = String::from_utf8_lossy(&o.stderr);
+    assert!(
+        !err.contains('\u{1b}'),
+        "escape codes off a terminal: {err}"
+    );
+    assert!(!err.contains('\r'), "{err}");
+    let stamped = |l: &str| {
+        let b = l.as_bytes();
+        l.len() > 21
+            && b[4] == b'-'
+            && b[7] == b'-'
+            && b[10] == b'T'
+            && b[13] == b':'
+            && b[16] == b':'
+            && b[19] == b'Z'
+            && l[..4].parse::<u32>().is_ok_and(|y| y >= 2024)
+            && l[20..].starts_with(" vastmul: ")
+    };
+    let lines: Vec<&str> = err.lines().collect();
+    let (last, log) = lines.split_last().unwrap();
+    assert!(last.starts_with("wrote c.txt"), "{err}");
+    assert!(log.iter().all(|l| stamped(l)), "unstamped line in {err}");
+    // Status lines at the steady rate, with the pass and the whole run.
+    let status: Vec<&&str> = log
+        .iter()
+        .filter(|l| l.contains("; overall ") && l.contains("%, "))
+        .collect();
+    assert!(status.len() >= 3, "{err}");
+    assert!(status.iter().any(|l| l.contains("pass ETA")), "{err}");
+    // One line per completed pass, in order.
+    for i in 1..=12 {
+        let needle = format!("done pass {i}/12 ");
+        assert!(log.iter().any(|l| l.contains(&needle)), "{needle} in {err}");
+    }
+}
+
+#[test]
+fn quiet_silences_bars_lines_and_summary() {
+    let t = tempfile::tempdir().unwrap();
+    operands(t.path());
+    let mut args = MUL.to_vec();
+    args.push("--quiet");
+    let o = Command::new(BIN)
+        .args(&args)
+        .current_dir(t.path())
+        .env("VASTMUL_PROGRESS_EVERY", "0.05")
+        .output()
+        .unwrap();
+    assert!(o.status.success(), "{o:?}");
+    assert!(
+        o.stderr.is_empty(),
+        "{}",
+        String::from_utf8_lossy(&o.stderr)
+    );
+    std::fs::remove_file(t.path().join("c.txt")).unwrap();
+    if let Some(o) = under_pty(t.path(), &args) {
+        assert!(o.status.success(), "{o:?}");
+        assert!(
+            o.stdout.is_empty(),
+            "{}",
+            String::from_utf8_lossy(&o.stdout)
+        );
+    } else {
+        println!("skipped: the terminal half (`script` is not installed)");
+    }
+    // Errors still show.
+    let o = Command::new(BIN)
+        .args(&args)
+        .current_dir(t.path())
+        .output()
+        .unwrap();
+    assert_eq!(o.status.code(), Some(4));
+    assert!(String::from_utf8_lossy(&o.stderr).contains("c.txt"));
+}
