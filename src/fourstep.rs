@@ -141,7 +141,7 @@ impl PrimeTables {
     fn new(prime: &NttPrime, shape: Shape) -> Self {
         let m = prime.modulus;
         let n = shape.len() as u64;
-        let w = prime.root_of_unity(n);
+        let w = prime.root_of_unity_any(n);
         let wi = m.inv(w);
         let bits = shape.rows.trailing_zeros();
         let (mut fwd, mut inv) = (vec![0; shape.rows], vec![0; shape.rows]);
@@ -224,9 +224,10 @@ struct RowBuffers {
 }
 
 impl FourStep {
-    /// Prepares tables for `shape` (powers of two, `lanes` dividing `cols`).
+    /// Prepares tables for `shape` (`rows` a power of two, `cols` one or
+    /// three times one, `lanes` dividing `cols`).
     pub fn new(shape: Shape) -> Self {
-        assert!(shape.rows.is_power_of_two() && shape.cols.is_power_of_two());
+        assert!(shape.rows.is_power_of_two() && crate::ntt::supported_len(shape.cols));
         assert!(shape.lanes >= 1 && shape.cols % shape.lanes == 0);
         let tables: Vec<PrimeTables> = PRIMES.iter().map(|p| PrimeTables::new(p, shape)).collect();
         // The inverse leaves N * c * 2^-64 (the pointwise Montgomery product

@@ -568,9 +568,15 @@ fn schoolbook_threshold_lengths_match_reference() {
 }
 
 /// The transform length the planner must pick for `coefficients`
-/// coefficients: the smallest power of two holding them (at least 2).
+/// coefficients: the smallest power of two holding them (at least 2), or
+/// three quarters of it when that holds them too (from 2^10 points on).
 fn expected_transform_len(coefficients: usize) -> usize {
-    coefficients.max(2).next_power_of_two()
+    let p = coefficients.max(2).next_power_of_two();
+    if p >= 1 << 10 && coefficients <= p / 4 * 3 {
+        p / 4 * 3
+    } else {
+        p
+    }
 }
 
 /// The NTT shape the planner gives a forced-NTT product of `la x lb` limbs.
@@ -588,13 +594,27 @@ fn planned_shape(la: usize, lb: usize, radix: Radix) -> vastmul::fourstep::Shape
 /// coefficient onto the bottom one). Every power of two up to 2^16 with
 /// balanced operands, so that every four-step rows/columns split and every
 /// lane width below 16 is used. The planned length is checked too.
+///
+/// From 2^10 points on, lengths of `3 * 2^k` too: `3 * 2^k - 1`, `3 * 2^k`
+/// and `3 * 2^k + 1` coefficients (full, and one over, which moves to
+/// `2^(k+2)`), so that the radix-3 row transforms are checked at every
+/// split as well.
 #[test]
 fn transform_length_boundaries_balanced_match_reference() {
     for radix in RADIXES {
         let mut rng = Rng::new(seed(radix, 100));
-        for k in 1..=16u32 {
-            let p = 1usize << k;
-            for coefficients in [p - 1, p, p + 1] {
+        let mut lengths: Vec<usize> = (1..=16u32)
+            .flat_map(|k| {
+                let p = 1usize << k;
+                [p - 1, p, p + 1]
+            })
+            .collect();
+        lengths.extend((8..=15u32).flat_map(|k| {
+            let t = 3usize << k;
+            [t - 1, t, t + 1]
+        }));
+        for coefficients in lengths {
+            {
                 let la = coefficients.div_ceil(2).max(1);
                 let lb = coefficients + 1 - la;
                 assert_eq!(
@@ -662,14 +682,16 @@ fn transform_length_boundaries_long_by_short_match_reference() {
 }
 
 /// The shape's contract, over lengths on and beside every power of two up
-/// to 2^30: a power-of-two length covering the request with less than
-/// double waste, rows times columns, lanes dividing the columns, and rows
+/// to 2^30 and three times one: the shortest length of `2^k` or `3 * 2^k`
+/// points covering the request, rows times columns, rows a power of two,
+/// columns one or three times one, lanes dividing the columns, and rows
 /// not exceeding columns.
 #[test]
 fn shapes_cover_every_length_minimally() {
     for k in 0..=30u32 {
         let p = 1usize << k;
-        for min_len in [p.saturating_sub(1).max(1), p, p + 1] {
+        let t = 3 * p;
+        for min_len in [p.saturating_sub(1).max(1), p, p + 1, t - 1, t, t + 1] {
             let s = shape_for(min_len);
             assert_eq!(
                 s.len(),
@@ -677,8 +699,9 @@ fn shapes_cover_every_length_minimally() {
                 "len for {min_len}"
             );
             assert_eq!(s.rows * s.cols, s.len(), "rows*cols for {min_len}");
+            let cols_odd = s.cols >> s.cols.trailing_zeros();
             assert!(
-                s.rows.is_power_of_two() && s.cols.is_power_of_two(),
+                s.rows.is_power_of_two() && (cols_odd == 1 || cols_odd == 3),
                 "{min_len}: {s:?}"
             );
             assert!(s.rows <= s.cols, "{min_len}: {s:?}");

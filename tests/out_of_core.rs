@@ -109,7 +109,8 @@ fn run_in(dir: &Path, args: &[&str]) -> std::process::Output {
 }
 
 /// Generates `a.txt` (3*10^6 digits) and `b.txt` (2*10^6 digits) in `dir`:
-/// a pair whose in-memory plan needs more than 24 MiB.
+/// a pair whose in-memory plan needs 23 MiB, more than the 16 MiB the
+/// tests give it.
 fn write_two_operands(dir: &Path) {
     for (digits, seed, name) in [("3000000", "9", "a.txt"), ("2000000", "8", "b.txt")] {
         let o = run_in(
@@ -136,7 +137,7 @@ fn cli_out_of_core_matches_in_memory_and_checks_scratch() {
         "-o",
         "disk.txt",
         "--memory",
-        "24MiB",
+        "16MiB",
         "--scratch",
         "scr",
         "--json",
@@ -160,7 +161,7 @@ fn cli_out_of_core_matches_in_memory_and_checks_scratch() {
         "-o",
         "x.txt",
         "--memory",
-        "24MiB",
+        "16MiB",
         "--scratch",
         "nowhere",
     ]);
@@ -224,7 +225,7 @@ fn a_disk_too_small_is_refused_before_any_work() {
         "-o",
         "c.txt",
         "--memory",
-        "24MiB",
+        "16MiB",
         "--scratch",
         "tiny",
     ]);
@@ -280,7 +281,7 @@ fn a_disk_that_fills_mid_run_keeps_the_state_and_the_rerun_completes() {
         "-o",
         "tiny/c.txt",
         "--memory",
-        "24MiB",
+        "16MiB",
     ];
     let mut child = std::process::Command::new(env!("CARGO_BIN_EXE_vastmul"))
         .args(args)
@@ -351,7 +352,7 @@ fn missing_and_unwritable_scratch_directories_are_refused() {
             "-o",
             "c.txt",
             "--memory",
-            "24MiB",
+            "16MiB",
             "--scratch",
             "nowhere",
         ],
@@ -386,7 +387,7 @@ fn missing_and_unwritable_scratch_directories_are_refused() {
             "-o",
             "c.txt",
             "--memory",
-            "24MiB",
+            "16MiB",
             "--scratch",
             "ro",
         ],

@@ -57,6 +57,14 @@ pub const MAX_TRANSFORM_LEN: u64 = 1 << 40;
 pub const PRIME_COUNT: usize = PRIMES.len();
 
 impl NttPrime {
+    /// A primitive `n`-th root of unity for any `n` dividing `p - 1`:
+    /// `g^((p-1)/n)` with `g` the generator, so that the roots of all
+    /// lengths are powers of one another (`root(n)^k = root(n / k)`).
+    pub const fn root_of_unity_any(&self, n: u64) -> u64 {
+        assert!(n > 0 && (self.modulus.p - 1) % n == 0);
+        self.modulus.pow(self.generator, (self.modulus.p - 1) / n)
+    }
+
     /// A primitive `n`-th root of unity, `n` a power of two up to `2^two_adicity`.
     pub const fn root_of_unity(&self, n: u64) -> u64 {
         assert!(n.is_power_of_two() && n.trailing_zeros() <= self.two_adicity);

@@ -24,17 +24,52 @@ use crate::arith::{Modulus, ShoupConst};
 ///
 /// Stage tables are stored heap-style: entry `m + j` (for `j < m`) is
 /// `w_(2m)^j`, the twiddle of the butterfly stage whose halves are `m` apart.
+///
+/// A length `3 * 2^k` carries a radix-3 step in front of three power-of-two
+/// transforms of length `2^k` (see [`Radix3`]).
 #[derive(Clone, Debug)]
 pub struct Twiddles {
     len: usize,
     fwd: Vec<ShoupConst>,
     inv: Vec<ShoupConst>,
+    three: Option<Box<Radix3>>,
+}
+
+/// The radix-3 step of a transform of length `n = 3m`: with `w` the
+/// primitive `n`-th root `g^((p-1)/n)` and `omega = w^m` a primitive cube
+/// root of unity, the forward step maps the thirds `a, b, c` of the input
+/// to `y_r[j] = w^(jr) (a_j + omega^r b_j + omega^(2r) c_j)` for `r < 3`,
+/// and the length-`m` transform of `y_r` (root `w^3`) holds the outputs
+/// `X[3k + r]`, `k` bit-reversed. Since the roots all come from the same
+/// generator, `w` is also the root the four-step decomposition assumes for
+/// its rows.
+#[derive(Clone, Debug)]
+pub struct Radix3 {
+    /// Tables of the three length-`m` transforms.
+    sub: Twiddles,
+    /// `omega` and its inverse.
+    omega: ShoupConst,
+    omega_inv: ShoupConst,
+    /// `w^j` and `w^(2j)` for `j < m`, and their inverses.
+    fwd1: Vec<ShoupConst>,
+    fwd2: Vec<ShoupConst>,
+    inv1: Vec<ShoupConst>,
+    inv2: Vec<ShoupConst>,
+}
+
+/// True for the transform lengths the kernels accept: `2^k` and `3 * 2^k`.
+pub fn supported_len(len: usize) -> bool {
+    len.is_power_of_two() || (len % 3 == 0 && (len / 3).is_power_of_two())
 }
 
 impl Twiddles {
-    /// Tables for transforms of length `len` (a power of two) modulo `prime`.
+    /// Tables for transforms of length `len` (`2^k` or `3 * 2^k`) modulo
+    /// `prime`.
     pub fn new(prime: &NttPrime, len: usize) -> Self {
-        assert!(len.is_power_of_two());
+        assert!(supported_len(len), "transform length {len}");
+        if !len.is_power_of_two() {
+            return Self::with_radix3(prime, len);
+        }
         let m = prime.modulus;
         let mut fwd = vec![ShoupConst::default(); len.max(1)];
         let mut inv = vec![ShoupConst::default(); len.max(1)];
@@ -51,7 +86,45 @@ impl Twiddles {
             }
             half *= 2;
         }
-        Twiddles { len, fwd, inv }
+        Twiddles {
+            len,
+            fwd,
+            inv,
+            three: None,
+        }
+    }
+
+    fn with_radix3(prime: &NttPrime, len: usize) -> Self {
+        let md = prime.modulus;
+        let third = len / 3;
+        let w = prime.root_of_unity_any(len as u64);
+        let wi = md.inv(w);
+        let omega = md.pow(w, third as u64);
+        let table = |base: u64| -> Vec<ShoupConst> {
+            let mut x = 1u64;
+            (0..third)
+                .map(|_| {
+                    let c = ShoupConst::new(x, md.p);
+                    x = md.mul(x, base);
+                    c
+                })
+                .collect()
+        };
+        let three = Radix3 {
+            sub: Twiddles::new(prime, third),
+            omega: ShoupConst::new(omega, md.p),
+            omega_inv: ShoupConst::new(md.inv(omega), md.p),
+            fwd1: table(w),
+            fwd2: table(md.mul(w, w)),
+            inv1: table(wi),
+            inv2: table(md.mul(wi, wi)),
+        };
+        Twiddles {
+            len,
+            fwd: Vec::new(),
+            inv: Vec::new(),
+            three: Some(Box::new(three)),
+        }
     }
 
     /// The transform length these tables serve.
@@ -98,22 +171,87 @@ fn quarters(block: &mut [u64], q: usize) -> [&mut [u64]; 4] {
 
 /// Forward transform in place: input in `[0, 2p)`, natural order; output in
 /// `[0, 2p)`, bit-reversed order.
+///
+/// For a length `3m` the output holds `X[3k + r]` at `r * m + bitrev(k)`.
 #[inline(never)]
 pub fn forward(a: &mut [u64], tw: &Twiddles, m: &Modulus) {
-    // A constant lane count lets the compiler drop the lane loops.
-    forward_impl(a, 1, tw, m)
+    match &tw.three {
+        // A constant lane count lets the compiler drop the lane loops.
+        None => forward_impl(a, 1, tw, m),
+        Some(t3) => {
+            radix3_forward(a, t3, m);
+            for part in a.chunks_exact_mut(t3.sub.len) {
+                forward_impl(part, 1, &t3.sub, m);
+            }
+        }
+    }
 }
 
 /// Inverse transform in place: input in `[0, 4p)`, bit-reversed order;
 /// output in `[0, 4p)`, natural order, multiplied by the length.
 #[inline(never)]
 pub fn inverse(a: &mut [u64], tw: &Twiddles, m: &Modulus) {
-    inverse_impl(a, 1, tw, m)
+    match &tw.three {
+        None => inverse_impl(a, 1, tw, m),
+        Some(t3) => {
+            for part in a.chunks_exact_mut(t3.sub.len) {
+                inverse_impl(part, 1, &t3.sub, m);
+            }
+            radix3_inverse(a, t3, m);
+        }
+    }
+}
+
+/// The forward radix-3 step: inputs in `[0, 2p)`, outputs in `[0, 2p)`.
+///
+/// With `a, b, c` reduced below `p` and `u = omega (b - c)`, and since
+/// `omega^2 = -1 - omega`: `a + omega b + omega^2 c = (a - c) + u` and
+/// `a + omega^2 b + omega c = (a - b) - u`. Every intermediate stays
+/// below `4p < 2^64`.
+fn radix3_forward(x: &mut [u64], t: &Radix3, md: &Modulus) {
+    let p = md.p;
+    let third = t.sub.len;
+    let (xa, rest) = x.split_at_mut(third);
+    let (xb, xc) = rest.split_at_mut(third);
+    for j in 0..third {
+        let a = md.reduce_2p(xa[j]);
+        let b = md.reduce_2p(xb[j]);
+        let c = md.reduce_2p(xc[j]);
+        let u = t.omega.mul_lazy(b + p - c, p);
+        let s = a + b + c;
+        xa[j] = if s >= md.two_p { s - md.two_p } else { s };
+        xb[j] = t.fwd1[j].mul_lazy(a + p - c + u, p);
+        xc[j] = t.fwd2[j].mul_lazy(a + p - b + md.two_p - u, p);
+    }
+}
+
+/// The inverse radix-3 step, undoing [`radix3_forward`] times 3: inputs in
+/// `[0, 4p)`, outputs in `[0, 4p)`. With `y0` and the untwisted `t1, t2`
+/// below `p`, and `v = omega^-1 (t1 - t2)`: `3a = y0 + t1 + t2`,
+/// `3b = (y0 - t2) + v`, `3c = (y0 - t1) - v`, all below `4p`.
+fn radix3_inverse(x: &mut [u64], t: &Radix3, md: &Modulus) {
+    let p = md.p;
+    let third = t.sub.len;
+    let (xa, rest) = x.split_at_mut(third);
+    let (xb, xc) = rest.split_at_mut(third);
+    for j in 0..third {
+        let y0 = md.reduce_4p(xa[j]);
+        let t1 = t.inv1[j].mul(xb[j], p);
+        let t2 = t.inv2[j].mul(xc[j], p);
+        let v = t.omega_inv.mul_lazy(t1 + p - t2, p);
+        xa[j] = y0 + t1 + t2;
+        xb[j] = y0 + p - t2 + v;
+        xc[j] = y0 + p - t1 + md.two_p - v;
+    }
 }
 
 /// [`forward`] on `lanes` interleaved vectors of length `tw.len()`.
 #[inline(never)]
 pub fn forward_lanes(a: &mut [u64], lanes: usize, tw: &Twiddles, m: &Modulus) {
+    assert!(
+        tw.three.is_none(),
+        "the lanes forms serve power-of-two lengths"
+    );
     forward_impl(a, lanes, tw, m)
 }
 
@@ -170,6 +308,10 @@ fn forward_impl(a: &mut [u64], lanes: usize, tw: &Twiddles, m: &Modulus) {
 /// [`inverse`] on `lanes` interleaved vectors of length `tw.len()`.
 #[inline(never)]
 pub fn inverse_lanes(a: &mut [u64], lanes: usize, tw: &Twiddles, m: &Modulus) {
+    assert!(
+        tw.three.is_none(),
+        "the lanes forms serve power-of-two lengths"
+    );
     inverse_impl(a, lanes, tw, m)
 }
 
@@ -235,6 +377,60 @@ mod tests {
     use super::*;
     use crate::arith::primes::PRIMES;
     use crate::test_oracles::{naive_dft, seeded_words};
+
+    #[test]
+    fn lengths_of_three_powers_of_two_match_the_naive_dft_and_invert() {
+        for pr in &PRIMES {
+            let m = pr.modulus;
+            for log in 0..=9u32 {
+                let third = 1usize << log;
+                let n = 3 * third;
+                let tw = Twiddles::new(pr, n);
+                // Inputs up to the top of their allowed range, and garbage
+                // beyond the data must not matter: none is passed.
+                let input: Vec<u64> = seeded_words(n, 77 + log as u64)
+                    .iter()
+                    .enumerate()
+                    .map(|(i, x)| {
+                        if i % 5 == 0 {
+                            2 * m.p - 1
+                        } else {
+                            x % (2 * m.p)
+                        }
+                    })
+                    .collect();
+                let reduced: Vec<u64> = input.iter().map(|x| x % m.p).collect();
+                let expect = naive_dft(&reduced, pr.root_of_unity_any(n as u64), m.p);
+                let mut a = input.clone();
+                forward(&mut a, &tw, &m);
+                for (k, e) in expect.iter().enumerate() {
+                    let got = a[(k % 3) * third + bit_reverse(k / 3, log)];
+                    assert!(got < 2 * m.p);
+                    assert_eq!(got % m.p, *e, "n={n} k={k}");
+                }
+                // Inverse of values up to 4p: the input times n.
+                let mut b: Vec<u64> = a
+                    .iter()
+                    .enumerate()
+                    .map(|(i, &x)| if i % 7 == 0 { x % m.p + 3 * m.p } else { x })
+                    .collect();
+                let mut again: Vec<u64> = b.iter().map(|x| x % m.p).collect();
+                inverse(&mut b, &tw, &m);
+                inverse(&mut again, &tw, &m);
+                for (x, y) in again.iter().zip(&b) {
+                    assert!(*x < 4 * m.p && *y < 4 * m.p);
+                    assert_eq!(x % m.p, y % m.p);
+                }
+                let mut round = input.clone();
+                forward(&mut round, &tw, &m);
+                inverse(&mut round, &tw, &m);
+                for (x, r) in input.iter().zip(&round) {
+                    assert!(*r < 4 * m.p);
+                    assert_eq!(r % m.p, m.mul(x % m.p, n as u64 % m.p), "n={n}");
+                }
+            }
+        }
+    }
 
     #[test]
     fn forward_matches_naive_dft_in_bit_reversed_order() {
