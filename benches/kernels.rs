@@ -51,9 +51,54 @@ fn transforms(c: &mut Criterion) {
     g.finish();
 }
 
+/// The 50-bit transforms on every path this CPU runs, single vectors of
+/// 2^10..2^14 points and 16 lanes of 2^10, throughput in butterflies (as
+/// above). `cargo bench --bench kernels -- ntt50`.
+fn transforms50(c: &mut Criterion) {
+    use vastmul::ntt50::{primes::PRIMES as PRIMES50, Kernel, Twiddles as Twiddles50};
+    let pr = &PRIMES50[0];
+    let p = pr.modulus.p;
+    let mut g = c.benchmark_group("ntt50");
+    for k in Kernel::ALL.into_iter().filter(|k| k.is_supported()) {
+        for log in [10u32, 12, 14] {
+            let n = 1usize << log;
+            let tw = Twiddles50::new(pr, n);
+            g.throughput(Throughput::Elements((n / 2) as u64 * log as u64));
+            let mut a = words(n, p);
+            g.bench_with_input(
+                BenchmarkId::new(format!("forward/{}", k.name()), n),
+                &n,
+                |bch, _| bch.iter(|| k.forward(black_box(&mut a), &tw)),
+            );
+            let mut a = words(n, p);
+            g.bench_with_input(
+                BenchmarkId::new(format!("inverse/{}", k.name()), n),
+                &n,
+                |bch, _| bch.iter(|| k.inverse(black_box(&mut a), &tw)),
+            );
+        }
+        let (n, lanes) = (1usize << 10, 16);
+        let tw = Twiddles50::new(pr, n);
+        g.throughput(Throughput::Elements((n / 2 * 10 * lanes) as u64));
+        let mut a = words(n * lanes, p);
+        g.bench_with_input(
+            BenchmarkId::new(format!("forward_lanes16/{}", k.name()), n),
+            &n,
+            |bch, _| bch.iter(|| k.forward_lanes(black_box(&mut a), lanes, &tw)),
+        );
+        let mut a = words(n * lanes, p);
+        g.bench_with_input(
+            BenchmarkId::new(format!("inverse_lanes16/{}", k.name()), n),
+            &n,
+            |bch, _| bch.iter(|| k.inverse_lanes(black_box(&mut a), lanes, &tw)),
+        );
+    }
+    g.finish();
+}
+
 criterion_group! {
     name = benches;
     config = Criterion::default().sample_size(20).measurement_time(std::time::Duration::from_secs(2));
-    targets = transforms
+    targets = transforms, transforms50
 }
 criterion_main!(benches);

@@ -210,7 +210,7 @@ const READ_AHEAD_COLUMNS: usize = 4096;
 fn read_ahead_span(block: usize, lanes: usize, cols: usize) -> Option<std::ops::Range<usize>> {
     let c0 = block * lanes;
     let stretch = READ_AHEAD_COLUMNS.min(cols);
-    if c0 % stretch != 0 {
+    if !c0.is_multiple_of(stretch) {
         return None;
     }
     Some(c0..(c0 + 2 * stretch).min(cols))
@@ -228,7 +228,7 @@ impl FourStep {
     /// three times one, `lanes` dividing `cols`).
     pub fn new(shape: Shape) -> Self {
         assert!(shape.rows.is_power_of_two() && crate::ntt::supported_len(shape.cols));
-        assert!(shape.lanes >= 1 && shape.cols % shape.lanes == 0);
+        assert!(shape.lanes >= 1 && shape.cols.is_multiple_of(shape.lanes));
         let tables: Vec<PrimeTables> = PRIMES.iter().map(|p| PrimeTables::new(p, shape)).collect();
         // The inverse leaves N * c * 2^-64 (the pointwise Montgomery product
         // drops one 2^64); the CRT divides that scale out.

@@ -43,6 +43,7 @@ pub mod crt;
 pub mod engine;
 pub mod fourstep;
 pub mod ntt;
+pub mod ntt50;
 pub mod pieces;
 pub mod plan;
 pub mod schoolbook;

@@ -378,7 +378,7 @@ fn best_pieces(req: &Request) -> Option<(Plan, f64)> {
             passes: Vec::new(),
             release_inputs: false,
         };
-        if count >= 2 && best.as_ref().map_or(true, |b| cost < b.1) {
+        if count >= 2 && best.as_ref().is_none_or(|b| cost < b.1) {
             if let Ok(p) = pieces_plan(req, base, piece, Some(shape_for(t))) {
                 best = Some((p, cost));
             }
@@ -608,7 +608,7 @@ mod tests {
                     1 << (k + 1)
                 };
                 assert_eq!(n, best, "min_len {min_len}");
-                assert!(s.rows <= s.cols && s.cols % s.lanes == 0 && s.lanes == LANES);
+                assert!(s.rows <= s.cols && s.cols.is_multiple_of(s.lanes) && s.lanes == LANES);
             }
         }
     }

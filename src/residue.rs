@@ -435,7 +435,7 @@ pub fn is_prime(n: u64) -> bool {
     }
     const BASES: [u64; 12] = [2, 3, 5, 7, 11, 13, 17, 19, 23, 29, 31, 37];
     for p in BASES {
-        if n % p == 0 {
+        if n.is_multiple_of(p) {
             return n == p;
         }
     }
@@ -656,7 +656,12 @@ mod tests {
 
     #[test]
     fn miller_rabin_agrees_with_trial_division_and_known_cases() {
-        let trial = |n: u64| n >= 2 && (2..).take_while(|d| d * d <= n).all(|d| n % d != 0);
+        let trial = |n: u64| {
+            n >= 2
+                && (2..)
+                    .take_while(|d| d * d <= n)
+                    .all(|d| !n.is_multiple_of(d))
+        };
         for n in 0..20_000u64 {
             assert_eq!(is_prime(n), trial(n), "{n}");
         }

@@ -65,7 +65,7 @@ fn decimal_conversion_matches_horner() {
             "direct back, {len} limbs"
         );
         let mut padded = limbs.clone();
-        padded.extend(std::iter::repeat(0).take(37));
+        padded.extend(std::iter::repeat_n(0, 37));
         assert_eq!(decimal_to_big(&padded), fast, "leading zeros, {len} limbs");
     }
     // The cached powers are the values the limb vectors [0; 2^j] ++ [1] mean.
@@ -705,7 +705,10 @@ fn shapes_cover_every_length_minimally() {
                 "{min_len}: {s:?}"
             );
             assert!(s.rows <= s.cols, "{min_len}: {s:?}");
-            assert!(s.lanes >= 1 && s.cols % s.lanes == 0, "{min_len}: {s:?}");
+            assert!(
+                s.lanes >= 1 && s.cols.is_multiple_of(s.lanes),
+                "{min_len}: {s:?}"
+            );
         }
     }
 }

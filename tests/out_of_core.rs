@@ -289,7 +289,7 @@ fn a_disk_that_fills_mid_run_keeps_the_state_and_the_rerun_completes() {
         .stderr(std::process::Stdio::piped())
         .spawn()
         .unwrap();
-    while journal_step(&disk.0).map_or(true, |s| s < 9) {
+    while journal_step(&disk.0).is_none_or(|s| s < 9) {
         assert!(
             child.try_wait().unwrap().is_none(),
             "finished before the disk filled"

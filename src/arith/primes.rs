@@ -61,7 +61,7 @@ impl NttPrime {
     /// `g^((p-1)/n)` with `g` the generator, so that the roots of all
     /// lengths are powers of one another (`root(n)^k = root(n / k)`).
     pub const fn root_of_unity_any(&self, n: u64) -> u64 {
-        assert!(n > 0 && (self.modulus.p - 1) % n == 0);
+        assert!(n > 0 && (self.modulus.p - 1).is_multiple_of(n));
         self.modulus.pow(self.generator, (self.modulus.p - 1) / n)
     }
 
@@ -79,10 +79,10 @@ const fn prime_factors(mut n: u64) -> ([u64; 16], usize) {
     let mut count = 0;
     let mut d = 2;
     while d * d <= n {
-        if n % d == 0 {
+        if n.is_multiple_of(d) {
             out[count] = d;
             count += 1;
-            while n % d == 0 {
+            while n.is_multiple_of(d) {
                 n /= d;
             }
         }
@@ -171,7 +171,7 @@ mod tests {
         }
         let bases = [2u64, 3, 5, 7, 11, 13, 17, 19, 23, 29, 31, 37];
         for &b in &bases {
-            if n % b == 0 {
+            if n.is_multiple_of(b) {
                 return n == b;
             }
         }

@@ -59,7 +59,7 @@ pub struct Radix3 {
 
 /// True for the transform lengths the kernels accept: `2^k` and `3 * 2^k`.
 pub fn supported_len(len: usize) -> bool {
-    len.is_power_of_two() || (len % 3 == 0 && (len / 3).is_power_of_two())
+    len.is_power_of_two() || (len.is_multiple_of(3) && (len / 3).is_power_of_two())
 }
 
 impl Twiddles {

@@ -1,0 +1,690 @@
+//! The AVX2 path: four lanes of doubles, products exact through FMA.
+//!
+//! Words below 2^52 convert to doubles and back with two instructions each
+//! (OR the bits into the mantissa of 2^52, subtract 2^52), so the data stays
+//! `u64` in memory and the arithmetic runs in doubles, where every value is
+//! an exact integer.
+//!
+//! A product `x * w mod p` with a fixed `w` (twiddles, the pointwise
+//! scale) and `|x| < 2^51`: `h = fl(x w)` and `l = x w - h` (exact, from
+//! one FMA) split the product; `c = round(x fl(w/p) - 1)` is within one of
+//! `x w / p - 1`, because the relative errors of `fl(w/p)` and of the FMA
+//! cost less than a half in absolute terms below 2^51; so `x w - c p` lies
+//! in `(0, 2p)`. It is computed as `(h - c p) + l`: the FMA `h - c p`
+//! rounds nothing, since its exact value is an integer below 2^53, and the
+//! final sum of two such integers is exact too. The pointwise product of
+//! two variables estimates its quotient from `fl(fl(a b) / p)` instead,
+//! leaving `(-2p, 2p)`, which the fixed-scale product then maps into
+//! `(0, 2p)`.
+//!
+//! The butterflies keep the scalar path's ranges but not its
+//! representatives: the inverse centres `y - 2p` before multiplying, and
+//! the products leave `(0, 2p)` rather than the scalar path's `[0, 2p)`.
+//! Vectors shorter than 16 use the scalar path; the two stages within
+//! 4-element blocks run on transposed 4x4 tiles.
+
+use super::{check_shape, quarters, require, scalar, Kernel, Modulus50, MulConst, Table, Twiddles};
+use core::arch::x86_64::*;
+
+type D = __m256d;
+
+/// Lanes per vector.
+const W: usize = 4;
+
+/// The shortest single vector the vector code takes: one 4x4 tile.
+const MIN_VECTOR_LEN: usize = W * W;
+
+/// 2^52: adding it to an integer below 2^52 puts the integer in the
+/// mantissa bits.
+const TWO_52: f64 = 4_503_599_627_370_496.0;
+
+/// Round to nearest, without raising the inexact flag.
+const ROUND_NEAREST: i32 = _MM_FROUND_TO_NEAREST_INT | _MM_FROUND_NO_EXC;
+
+/// Forward transform in place: `[0, 2p)` in natural order to `[0, 2p)` in
+/// bit-reversed order. Panics if the CPU lacks AVX2 or FMA.
+pub fn forward(a: &mut [u64], tw: &Twiddles) {
+    check_shape(a, 1, tw);
+    require(Kernel::Avx2);
+    // SAFETY: `require` checked that the CPU has every feature the callee
+    // is compiled for.
+    unsafe { forward_single(a, tw) }
+}
+
+/// Inverse transform in place: `[0, 4p)` in bit-reversed order to
+/// `[0, 4p)` in natural order, times the length. Panics if the CPU lacks
+/// AVX2 or FMA.
+pub fn inverse(a: &mut [u64], tw: &Twiddles) {
+    check_shape(a, 1, tw);
+    require(Kernel::Avx2);
+    // SAFETY: `require` checked that the CPU has every feature the callee
+    // is compiled for.
+    unsafe { inverse_single(a, tw) }
+}
+
+/// [`forward`] on `lanes` interleaved vectors of length `tw.len()`.
+pub fn forward_lanes(a: &mut [u64], lanes: usize, tw: &Twiddles) {
+    check_shape(a, lanes, tw);
+    require(Kernel::Avx2);
+    // SAFETY: `require` checked that the CPU has every feature the callee
+    // is compiled for.
+    unsafe { forward_interleaved(a, lanes, tw) }
+}
+
+/// [`inverse`] on `lanes` interleaved vectors of length `tw.len()`.
+pub fn inverse_lanes(a: &mut [u64], lanes: usize, tw: &Twiddles) {
+    check_shape(a, lanes, tw);
+    require(Kernel::Avx2);
+    // SAFETY: `require` checked that the CPU has every feature the callee
+    // is compiled for.
+    unsafe { inverse_interleaved(a, lanes, tw) }
+}
+
+/// `a[i] = a[i] * b[i] * scale mod p`: `[0, 2p)` in and out.
+pub fn pointwise(a: &mut [u64], b: &[u64], scale: u64, m: &Modulus50) {
+    assert_eq!(a.len(), b.len(), "pointwise operands differ in length");
+    require(Kernel::Avx2);
+    // SAFETY: `require` checked that the CPU has every feature the callee
+    // is compiled for.
+    unsafe { pointwise_all(a, b, scale, m) }
+}
+
+/// The modulus' constants, broadcast.
+#[derive(Clone, Copy)]
+struct Consts {
+    p: D,
+    two_p: D,
+    inv_p: D,
+    one: D,
+    two_52: D,
+}
+
+/// A fixed multiplier and `w / p`, per lane.
+#[derive(Clone, Copy)]
+struct Tw {
+    w: D,
+    wq: D,
+}
+
+#[inline]
+#[target_feature(enable = "avx2,fma")]
+fn consts(m: &Modulus50) -> Consts {
+    Consts {
+        p: _mm256_set1_pd(m.p_f64),
+        two_p: _mm256_set1_pd(2.0 * m.p_f64),
+        inv_p: _mm256_set1_pd(m.inv_p_f64),
+        one: _mm256_set1_pd(1.0),
+        two_52: _mm256_set1_pd(TWO_52),
+    }
+}
+
+#[inline]
+#[target_feature(enable = "avx2,fma")]
+fn splat_tw(c: MulConst) -> Tw {
+    Tw {
+        w: _mm256_set1_pd(c.wf),
+        wq: _mm256_set1_pd(c.wq),
+    }
+}
+
+/// `s` as whole vectors; panics on a partial one at the end. Loops over
+/// these index arrays of known length, so no load needs a bounds check.
+#[inline(always)]
+fn vectors<T>(s: &[T]) -> &[[T; W]] {
+    let (v, rest) = s.as_chunks::<W>();
+    assert!(rest.is_empty(), "not a whole number of vectors");
+    v
+}
+
+/// [`vectors`], mutable.
+#[inline(always)]
+fn vectors_mut(s: &mut [u64]) -> &mut [[u64; W]] {
+    let (v, rest) = s.as_chunks_mut::<W>();
+    assert!(rest.is_empty(), "not a whole number of vectors");
+    v
+}
+
+/// Consecutive twiddles `start .. start + len` of a table as whole
+/// vectors, cut once per stage.
+#[derive(Clone, Copy)]
+struct Run<'a> {
+    w: &'a [[f64; W]],
+    wq: &'a [[f64; W]],
+}
+
+impl<'a> Run<'a> {
+    fn new(t: &'a Table, start: usize, len: usize) -> Self {
+        Run {
+            w: vectors(&t.wf[start..start + len]),
+            wq: vectors(&t.wq[start..start + len]),
+        }
+    }
+}
+
+/// Vector `j` of a run of twiddles.
+#[inline]
+#[target_feature(enable = "avx2,fma")]
+fn load_tw(r: &Run, j: usize) -> Tw {
+    let (w, wq) = (&r.w[j], &r.wq[j]);
+    // SAFETY: both arrays are W initialised doubles; loads are unaligned.
+    unsafe {
+        Tw {
+            w: _mm256_loadu_pd(w.as_ptr()),
+            wq: _mm256_loadu_pd(wq.as_ptr()),
+        }
+    }
+}
+
+/// Integers in `[0, 2^52)` to doubles.
+#[inline]
+#[target_feature(enable = "avx2,fma")]
+fn to_f64(x: __m256i, k: Consts) -> D {
+    let biased = _mm256_or_si256(x, _mm256_castpd_si256(k.two_52));
+    _mm256_sub_pd(_mm256_castsi256_pd(biased), k.two_52)
+}
+
+/// Doubles holding integers in `[0, 2^52)` to integers.
+#[inline]
+#[target_feature(enable = "avx2,fma")]
+fn to_u64(x: D, k: Consts) -> __m256i {
+    let biased = _mm256_castpd_si256(_mm256_add_pd(x, k.two_52));
+    _mm256_xor_si256(biased, _mm256_castpd_si256(k.two_52))
+}
+
+/// Four words as doubles.
+#[inline]
+#[target_feature(enable = "avx2,fma")]
+fn load(s: &[u64; W], k: Consts) -> D {
+    // SAFETY: `s` is W initialised words; the load is unaligned.
+    let x = unsafe { _mm256_loadu_si256(s.as_ptr().cast()) };
+    to_f64(x, k)
+}
+
+/// Four doubles as words.
+#[inline]
+#[target_feature(enable = "avx2,fma")]
+fn store(s: &mut [u64; W], v: D, k: Consts) {
+    // SAFETY: `s` is W writable words; the store is unaligned.
+    unsafe { _mm256_storeu_si256(s.as_mut_ptr().cast(), to_u64(v, k)) }
+}
+
+/// All-ones in the lanes below `min(len, 4)`.
+#[inline]
+#[target_feature(enable = "avx2,fma")]
+fn part_mask(len: usize) -> __m256i {
+    let len = _mm256_set1_epi64x(len.min(W) as i64);
+    _mm256_cmpgt_epi64(len, _mm256_setr_epi64x(0, 1, 2, 3))
+}
+
+/// The first `min(len, 4)` words of `s` as doubles, zeros elsewhere.
+#[inline]
+#[target_feature(enable = "avx2,fma")]
+fn load_part(s: &[u64], k: Consts) -> D {
+    let mask = part_mask(s.len());
+    // SAFETY: the mask enables only lanes below `s.len()`; masked-off
+    // lanes are neither read nor able to fault.
+    let x = unsafe { _mm256_maskload_epi64(s.as_ptr().cast(), mask) };
+    to_f64(x, k)
+}
+
+/// Writes the first `min(len, 4)` lanes of `v` to `s` as words.
+#[inline]
+#[target_feature(enable = "avx2,fma")]
+fn store_part(s: &mut [u64], v: D, k: Consts) {
+    let mask = part_mask(s.len());
+    // SAFETY: the mask enables only lanes below `s.len()`; masked-off
+    // lanes are neither written nor able to fault.
+    unsafe { _mm256_maskstore_epi64(s.as_mut_ptr().cast(), mask, to_u64(v, k)) }
+}
+
+/// `x * w mod p` in `(0, 2p)` for an integer `|x| < 2^51` (module notes).
+#[inline]
+#[target_feature(enable = "avx2,fma")]
+fn mul_fixed(x: D, t: Tw, k: Consts) -> D {
+    let h = _mm256_mul_pd(x, t.w);
+    let l = _mm256_fmsub_pd(x, t.w, h);
+    let c = _mm256_round_pd::<ROUND_NEAREST>(_mm256_fmsub_pd(x, t.wq, k.one));
+    _mm256_add_pd(_mm256_fnmadd_pd(c, k.p, h), l)
+}
+
+/// `a * b mod p` in `(-2p, 2p)` for integers `a, b` in `[0, 2p)`.
+#[inline]
+#[target_feature(enable = "avx2,fma")]
+fn mul_var(a: D, b: D, k: Consts) -> D {
+    let h = _mm256_mul_pd(a, b);
+    let l = _mm256_fmsub_pd(a, b, h);
+    let c = _mm256_round_pd::<ROUND_NEAREST>(_mm256_mul_pd(h, k.inv_p));
+    _mm256_add_pd(_mm256_fnmadd_pd(c, k.p, h), l)
+}
+
+/// `x` less `2p` where that stays non-negative: `[0, 4p)` to `[0, 2p)`.
+#[inline]
+#[target_feature(enable = "avx2,fma")]
+fn reduce_2p(x: D, k: Consts) -> D {
+    let t = _mm256_sub_pd(x, k.two_p);
+    _mm256_blendv_pd(t, x, t)
+}
+
+/// Decimation-in-frequency butterfly: `[0, 2p)` in and out.
+#[inline]
+#[target_feature(enable = "avx2,fma")]
+fn dif(x: D, y: D, t: Tw, k: Consts) -> (D, D) {
+    let s = reduce_2p(_mm256_add_pd(x, y), k);
+    (s, mul_fixed(_mm256_sub_pd(x, y), t, k))
+}
+
+/// Decimation-in-time butterfly: `[0, 4p)` in and out.
+#[inline]
+#[target_feature(enable = "avx2,fma")]
+fn dit(x: D, y: D, t: Tw, k: Consts) -> (D, D) {
+    let u = reduce_2p(x, k);
+    let v = mul_fixed(_mm256_sub_pd(y, k.two_p), t, k);
+    let sum = _mm256_add_pd(u, v);
+    (sum, _mm256_sub_pd(_mm256_add_pd(u, k.two_p), v))
+}
+
+// The direction is a const parameter, so that each direction compiles to
+// its own loop with no test of it inside.
+
+/// The const parameter of the forward direction.
+const FORWARD: bool = true;
+/// The const parameter of the inverse direction.
+const INVERSE: bool = false;
+
+/// The twiddle entries of a radix-4 step at quarter size `q`, offset `j`,
+/// in the order [`dif4`] / [`dit4`] take them.
+#[inline(always)]
+fn radix4_entries(forward: bool, q: usize, j: usize) -> [usize; 3] {
+    if forward {
+        [2 * q + j, 3 * q + j, q + j]
+    } else {
+        [q + j, 2 * q + j, 3 * q + j]
+    }
+}
+
+#[inline]
+#[target_feature(enable = "avx2,fma")]
+fn step2<const FWD: bool>(x: D, y: D, t: Tw, k: Consts) -> (D, D) {
+    if FWD {
+        dif(x, y, t, k)
+    } else {
+        dit(x, y, t, k)
+    }
+}
+
+/// Two forward stages on four values `q` apart: `ta`, `tb` for the outer
+/// stage's two pairs, `t2` for the inner stage.
+#[inline]
+#[target_feature(enable = "avx2,fma")]
+fn dif4(v: [D; 4], [ta, tb, t2]: [Tw; 3], k: Consts) -> [D; 4] {
+    let (v0, v2) = dif(v[0], v[2], ta, k);
+    let (v1, v3) = dif(v[1], v[3], tb, k);
+    let (v0, v1) = dif(v0, v1, t2, k);
+    let (v2, v3) = dif(v2, v3, t2, k);
+    [v0, v1, v2, v3]
+}
+
+/// Two inverse stages on four values `q` apart: `t1` for the inner stage,
+/// `ta`, `tb` for the outer stage's two pairs.
+#[inline]
+#[target_feature(enable = "avx2,fma")]
+fn dit4(v: [D; 4], [t1, ta, tb]: [Tw; 3], k: Consts) -> [D; 4] {
+    let (v0, v1) = dit(v[0], v[1], t1, k);
+    let (v2, v3) = dit(v[2], v[3], t1, k);
+    let (v0, v2) = dit(v0, v2, ta, k);
+    let (v1, v3) = dit(v1, v3, tb, k);
+    [v0, v1, v2, v3]
+}
+
+#[inline]
+#[target_feature(enable = "avx2,fma")]
+fn step4<const FWD: bool>(v: [D; 4], t: [Tw; 3], k: Consts) -> [D; 4] {
+    if FWD {
+        dif4(v, t, k)
+    } else {
+        dit4(v, t, k)
+    }
+}
+
+/// A radix-4 step of a single vector, `q >= 4`: consecutive butterflies
+/// take consecutive twiddles.
+#[target_feature(enable = "avx2,fma")]
+fn radix4_single<const FWD: bool>(a: &mut [u64], q: usize, t: &Table, k: Consts) {
+    let runs = radix4_entries(FWD, q, 0).map(|i| Run::new(t, i, q));
+    for block in a.chunks_exact_mut(4 * q) {
+        let [b0, b1, b2, b3] = quarters(block, q).map(vectors_mut);
+        for j in 0..b0.len() {
+            let tws = runs.map(|r| load_tw(&r, j));
+            let v = [
+                load(&b0[j], k),
+                load(&b1[j], k),
+                load(&b2[j], k),
+                load(&b3[j], k),
+            ];
+            let [v0, v1, v2, v3] = step4::<FWD>(v, tws, k);
+            store(&mut b0[j], v0, k);
+            store(&mut b1[j], v1, k);
+            store(&mut b2[j], v2, k);
+            store(&mut b3[j], v3, k);
+        }
+    }
+}
+
+/// A radix-2 stage of a single vector with halves `half >= 4` apart.
+#[target_feature(enable = "avx2,fma")]
+fn radix2_single<const FWD: bool>(a: &mut [u64], half: usize, t: &Table, k: Consts) {
+    let run = Run::new(t, half, half);
+    for block in a.chunks_exact_mut(2 * half) {
+        let (lo, hi) = block.split_at_mut(half);
+        let (lo, hi) = (vectors_mut(lo), vectors_mut(hi));
+        for j in 0..lo.len() {
+            let (x, y) = step2::<FWD>(load(&lo[j], k), load(&hi[j], k), load_tw(&run, j), k);
+            store(&mut lo[j], x, k);
+            store(&mut hi[j], y, k);
+        }
+    }
+}
+
+/// Transposes a 4x4 tile held as four rows.
+#[inline]
+#[target_feature(enable = "avx2,fma")]
+fn transpose(r: [D; 4]) -> [D; 4] {
+    // rows 2i and 2i+1 interleaved: columns {0, 2}, then columns {1, 3}
+    let t0 = _mm256_unpacklo_pd(r[0], r[1]);
+    let t1 = _mm256_unpackhi_pd(r[0], r[1]);
+    let t2 = _mm256_unpacklo_pd(r[2], r[3]);
+    let t3 = _mm256_unpackhi_pd(r[2], r[3]);
+    [
+        _mm256_permute2f128_pd::<0x20>(t0, t2),
+        _mm256_permute2f128_pd::<0x20>(t1, t3),
+        _mm256_permute2f128_pd::<0x31>(t0, t2),
+        _mm256_permute2f128_pd::<0x31>(t1, t3),
+    ]
+}
+
+/// The stages 2 and 1 of every 4-element block, on transposed 4x4 tiles,
+/// in the order the direction runs them.
+#[target_feature(enable = "avx2,fma")]
+fn tiles<const FWD: bool>(a: &mut [u64], t: &Table, k: Consts) {
+    let (t1, t2, t3) = (splat_tw(t.get(1)), splat_tw(t.get(2)), splat_tw(t.get(3)));
+    for tile in vectors_mut(a).as_chunks_mut::<W>().0 {
+        let [c0, c1, c2, c3] = transpose([0, 1, 2, 3].map(|i| load(&tile[i], k)));
+        // forward: columns c and c + 2 with twiddles 2 + c, then c and c + 1
+        let tws = if FWD { [t2, t3, t1] } else { [t1, t2, t3] };
+        let [c0, c1, c2, c3] = step4::<FWD>([c0, c1, c2, c3], tws, k);
+        let rows = transpose([c0, c1, c2, c3]);
+        for (row, r) in tile.iter_mut().zip(rows) {
+            store(row, r, k);
+        }
+    }
+}
+
+#[target_feature(enable = "avx2,fma")]
+fn forward_single(a: &mut [u64], tw: &Twiddles) {
+    let n = tw.len();
+    if n < MIN_VECTOR_LEN {
+        return scalar::forward(a, tw);
+    }
+    let (k, t) = (consts(tw.modulus()), &tw.fwd);
+    // stages n/2 .. 4 in vectors of consecutive butterflies
+    let mut half = n / 2;
+    if n.trailing_zeros() % 2 == 1 {
+        // an odd count of them (log2 n - 2): one radix-2 stage first
+        radix2_single::<FORWARD>(a, half, t, k);
+        half /= 2;
+    }
+    while half >= 2 * W {
+        radix4_single::<FORWARD>(a, half / 2, t, k);
+        half /= 4;
+    }
+    tiles::<FORWARD>(a, t, k);
+}
+
+#[target_feature(enable = "avx2,fma")]
+fn inverse_single(a: &mut [u64], tw: &Twiddles) {
+    let n = tw.len();
+    if n < MIN_VECTOR_LEN {
+        return scalar::inverse(a, tw);
+    }
+    let (k, t) = (consts(tw.modulus()), &tw.inv);
+    tiles::<INVERSE>(a, t, k);
+    let mut q = W;
+    while 2 * q <= n / 2 {
+        radix4_single::<INVERSE>(a, q, t, k);
+        q *= 4;
+    }
+    if q == n / 2 {
+        radix2_single::<INVERSE>(a, q, t, k);
+    }
+}
+
+/// Four rows of lanes through one radix-4 step with broadcast twiddles,
+/// four lanes at a time, the last group masked.
+#[target_feature(enable = "avx2,fma")]
+fn radix4_row<const FWD: bool>(rows: [&mut [u64]; 4], tws: [Tw; 3], k: Consts) {
+    let [(x0, r0), (x1, r1), (x2, r2), (x3, r3)] = rows.map(|r| r.as_chunks_mut::<W>());
+    for j in 0..x0.len() {
+        let v = [
+            load(&x0[j], k),
+            load(&x1[j], k),
+            load(&x2[j], k),
+            load(&x3[j], k),
+        ];
+        let [v0, v1, v2, v3] = step4::<FWD>(v, tws, k);
+        store(&mut x0[j], v0, k);
+        store(&mut x1[j], v1, k);
+        store(&mut x2[j], v2, k);
+        store(&mut x3[j], v3, k);
+    }
+    if !r0.is_empty() {
+        let (x0, x1, x2, x3) = (r0, r1, r2, r3);
+        let v = [
+            load_part(x0, k),
+            load_part(x1, k),
+            load_part(x2, k),
+            load_part(x3, k),
+        ];
+        let [v0, v1, v2, v3] = step4::<FWD>(v, tws, k);
+        store_part(x0, v0, k);
+        store_part(x1, v1, k);
+        store_part(x2, v2, k);
+        store_part(x3, v3, k);
+    }
+}
+
+/// Two rows of lanes through one radix-2 butterfly with a broadcast
+/// twiddle, the last group masked.
+#[target_feature(enable = "avx2,fma")]
+fn radix2_row<const FWD: bool>(xs: &mut [u64], ys: &mut [u64], t: Tw, k: Consts) {
+    let ((xv, xs), (yv, ys)) = (xs.as_chunks_mut::<W>(), ys.as_chunks_mut::<W>());
+    for j in 0..xv.len() {
+        let (x, y) = step2::<FWD>(load(&xv[j], k), load(&yv[j], k), t, k);
+        store(&mut xv[j], x, k);
+        store(&mut yv[j], y, k);
+    }
+    if !xs.is_empty() {
+        let (x, y) = step2::<FWD>(load_part(xs, k), load_part(ys, k), t, k);
+        store_part(xs, x, k);
+        store_part(ys, y, k);
+    }
+}
+
+#[target_feature(enable = "avx2,fma")]
+fn radix4_lanes<const FWD: bool>(a: &mut [u64], lanes: usize, q: usize, t: &Table, k: Consts) {
+    for block in a.chunks_exact_mut(4 * q * lanes) {
+        let [b0, b1, b2, b3] = quarters(block, q * lanes);
+        for j in 0..q {
+            let tws = radix4_entries(FWD, q, j).map(|i| splat_tw(t.get(i)));
+            let r = j * lanes..(j + 1) * lanes;
+            let rows = [
+                &mut b0[r.clone()],
+                &mut b1[r.clone()],
+                &mut b2[r.clone()],
+                &mut b3[r],
+            ];
+            radix4_row::<FWD>(rows, tws, k);
+        }
+    }
+}
+
+#[target_feature(enable = "avx2,fma")]
+fn radix2_lanes<const FWD: bool>(a: &mut [u64], lanes: usize, half: usize, t: &Table, k: Consts) {
+    for block in a.chunks_exact_mut(2 * half * lanes) {
+        let (lo, hi) = block.split_at_mut(half * lanes);
+        for (j, (xs, ys)) in lo
+            .chunks_exact_mut(lanes)
+            .zip(hi.chunks_exact_mut(lanes))
+            .enumerate()
+        {
+            radix2_row::<FWD>(xs, ys, splat_tw(t.get(half + j)), k);
+        }
+    }
+}
+
+#[target_feature(enable = "avx2,fma")]
+fn forward_interleaved(a: &mut [u64], lanes: usize, tw: &Twiddles) {
+    if lanes == 1 {
+        return forward_single(a, tw);
+    }
+    let (k, t, n) = (consts(tw.modulus()), &tw.fwd, tw.len());
+    let mut half = n / 2;
+    if n.trailing_zeros() % 2 == 1 {
+        radix2_lanes::<FORWARD>(a, lanes, half, t, k);
+        half /= 2;
+    }
+    while half >= 2 {
+        radix4_lanes::<FORWARD>(a, lanes, half / 2, t, k);
+        half /= 4;
+    }
+}
+
+#[target_feature(enable = "avx2,fma")]
+fn inverse_interleaved(a: &mut [u64], lanes: usize, tw: &Twiddles) {
+    if lanes == 1 {
+        return inverse_single(a, tw);
+    }
+    let (k, t, n) = (consts(tw.modulus()), &tw.inv, tw.len());
+    let mut q = 1;
+    while 4 * q <= n {
+        radix4_lanes::<INVERSE>(a, lanes, q, t, k);
+        q *= 4;
+    }
+    if q < n {
+        radix2_lanes::<INVERSE>(a, lanes, q, t, k);
+    }
+}
+
+#[target_feature(enable = "avx2,fma")]
+fn pointwise_all(a: &mut [u64], b: &[u64], scale: u64, m: &Modulus50) {
+    let (k, s) = (consts(m), splat_tw(MulConst::new(scale, m)));
+    let ((xs, x), (ys, y)) = (a.as_chunks_mut::<W>(), b.as_chunks::<W>());
+    for (xv, yv) in xs.iter_mut().zip(ys) {
+        store(xv, mul_fixed(mul_var(load(xv, k), load(yv, k), k), s, k), k);
+    }
+    if !x.is_empty() {
+        let v = mul_var(load_part(x, k), load_part(y, k), k);
+        store_part(x, mul_fixed(v, s, k), k);
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    /// The tile transpose on a tile of distinct words, against index
+    /// arithmetic.
+    #[test]
+    fn transpose_moves_row_i_column_j_to_row_j_column_i() {
+        if !Kernel::Avx2.is_supported() {
+            println!("skipped: avx2 not supported on this CPU");
+            return;
+        }
+        let tile: Vec<u64> = (0..16).collect();
+        let mut out = vec![0u64; 16];
+        // SAFETY: AVX2 and FMA support was checked above.
+        unsafe { transpose_roundtrip(&tile, &mut out) };
+        for i in 0..4 {
+            for j in 0..4 {
+                assert_eq!(out[j * 4 + i], tile[i * 4 + j], "row {i} column {j}");
+            }
+        }
+    }
+
+    /// Applies `f` to four lanes of doubles.
+    #[target_feature(enable = "avx2,fma")]
+    fn lanes4(x: [f64; 4], y: [f64; 4], f: impl Fn(D, D) -> D) -> [f64; 4] {
+        let mut out = [0.0; 4];
+        // SAFETY: each array holds four doubles; the accesses are unaligned.
+        unsafe {
+            let v = f(_mm256_loadu_pd(x.as_ptr()), _mm256_loadu_pd(y.as_ptr()));
+            _mm256_storeu_pd(out.as_mut_ptr(), v);
+        }
+        out
+    }
+
+    /// Integer doubles from words in `[lo, hi)`, with both ends mixed in.
+    fn samples(count: usize, lo: i64, hi: i64, seed: u64) -> Vec<f64> {
+        let span = (hi - lo) as u64;
+        let mut v: Vec<f64> = crate::test_oracles::seeded_words(count, seed)
+            .iter()
+            .map(|x| (lo + (x % span) as i64) as f64)
+            .collect();
+        v[..4].copy_from_slice(&[lo as f64, (hi - 1) as f64, lo as f64, (hi - 1) as f64]);
+        v
+    }
+
+    /// The products' contracts on 2^16 samples per prime, taken from the
+    /// whole input ranges including their ends: `mul_fixed` maps
+    /// `[-2p, 2p]` into `(0, 2p)` and `mul_var` maps `[0, 2p)^2` into
+    /// `(-2p, 2p)`, both congruent to the product.
+    #[test]
+    fn fp_products_keep_their_ranges_and_residues() {
+        if !Kernel::Avx2.is_supported() {
+            println!("skipped: avx2 not supported on this CPU");
+            return;
+        }
+        for pr in &crate::ntt50::primes::PRIMES {
+            let m = pr.modulus;
+            let (p, pi) = (m.p, m.p as i64);
+            let xs = samples(1 << 16, -2 * pi, 2 * pi + 1, p);
+            let ws = samples(1 << 16, 0, pi, p + 1);
+            let (as_, bs) = (
+                samples(1 << 16, 0, 2 * pi, p + 2),
+                samples(1 << 16, 0, 2 * pi, p + 3),
+            );
+            let residue = |v: f64| (v as i64).rem_euclid(pi) as u64;
+            for i in (0..xs.len()).step_by(4) {
+                let c = MulConst::new(ws[i] as u64, &m);
+                let quad = |v: &[f64]| -> [f64; 4] { v[i..i + 4].try_into().unwrap() };
+                let (x, a, b) = (quad(&xs), quad(&as_), quad(&bs));
+                // SAFETY: AVX2 and FMA support was checked above.
+                let (fixed, var) = unsafe {
+                    let k = consts(&m);
+                    (
+                        lanes4(x, x, |x, _| mul_fixed(x, splat_tw(c), k)),
+                        lanes4(a, b, |a, b| mul_var(a, b, k)),
+                    )
+                };
+                for l in 0..4 {
+                    let r = fixed[l];
+                    assert!(r > 0.0 && r < 2.0 * p as f64, "mul_fixed({}) = {r}", x[l]);
+                    assert_eq!(residue(r), m.mul(residue(x[l]), c.w));
+                    let v = var[l];
+                    assert!(v.abs() < 2.0 * p as f64, "mul_var = {v}");
+                    assert_eq!(residue(v), m.mul(a[l] as u64, b[l] as u64));
+                }
+            }
+        }
+    }
+
+    #[target_feature(enable = "avx2,fma")]
+    fn transpose_roundtrip(tile: &[u64], out: &mut [u64]) {
+        let m = Modulus50::new(17);
+        let k = consts(&m);
+        let rows = vectors(tile);
+        let cols = transpose([0, 1, 2, 3].map(|i| load(&rows[i], k)));
+        for (row, c) in vectors_mut(out).iter_mut().zip(cols) {
+            store(row, c, k);
+        }
+    }
+}

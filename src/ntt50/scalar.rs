@@ -1,0 +1,216 @@
+//! The portable path: 64-bit integer code that runs everywhere and is the
+//! reference the vector paths are tested against.
+//!
+//! Twiddle products use Shoup's method in base 2^52, exactly as the IFMA
+//! path does, so the two paths leave the same lazy values; the AVX2 path
+//! may leave other representatives in the same ranges.
+
+use super::{check_shape, montgomery_scale, quarters, Modulus50, Table, Twiddles, MASK52};
+
+/// `x * w mod p` in `[0, 2p)` for `x < 2^52`, given `q = shoup52(w)`.
+///
+/// The quotient estimate `floor(x q / 2^52)` is at most one below the true
+/// quotient, so the remainder lies in `[0, 2p)`; it is computed modulo
+/// 2^64, which is exact for a value that small. (The IFMA path computes it
+/// modulo 2^52 and gets the same value.)
+#[inline(always)]
+pub fn mul_shoup(x: u64, w: u64, q: u64, m: &Modulus50) -> u64 {
+    let est = ((x as u128 * q as u128) >> 52) as u64;
+    x.wrapping_mul(w).wrapping_sub(est.wrapping_mul(m.p))
+}
+
+/// Montgomery's product in base 2^52, `a * b * 2^-52 mod p` in `[0, 2p)`,
+/// for `a * b < 2^52 p` (both below `2p` suffices as `4p < 2^52`).
+#[inline(always)]
+pub fn mul_montgomery(a: u64, b: u64, m: &Modulus50) -> u64 {
+    let t = a as u128 * b as u128;
+    let k = (t as u64).wrapping_mul(m.neg_p_inv) & MASK52;
+    ((t + k as u128 * m.p as u128) >> 52) as u64
+}
+
+/// A twiddle and its base-2^52 Shoup quotient.
+type Tw = (u64, u64);
+
+/// Decimation-in-frequency butterfly `(x + y, (x - y) w)`: `[0, 2p)` in
+/// and out.
+#[inline(always)]
+fn dif(x: &mut u64, y: &mut u64, (w, q): Tw, m: &Modulus50) {
+    let (u, v) = (*x, *y);
+    let s = u + v;
+    *x = if s >= m.two_p { s - m.two_p } else { s };
+    *y = mul_shoup(u + m.two_p - v, w, q, m);
+}
+
+/// Decimation-in-time butterfly `(x + y w, x - y w)`: `[0, 4p)` in and out.
+#[inline(always)]
+fn dit(x: &mut u64, y: &mut u64, (w, q): Tw, m: &Modulus50) {
+    let u = if *x >= m.two_p { *x - m.two_p } else { *x };
+    let v = mul_shoup(*y, w, q, m);
+    *x = u + v;
+    *y = u + m.two_p - v;
+}
+
+/// The twiddles `start .. start + len` of a table, cut once per stage so
+/// that the butterfly loops index within known bounds.
+#[derive(Clone, Copy)]
+struct Run<'a> {
+    w: &'a [u64],
+    q: &'a [u64],
+}
+
+impl<'a> Run<'a> {
+    fn new(t: &'a Table, start: usize, len: usize) -> Self {
+        Run {
+            w: &t.w[start..start + len],
+            q: &t.q[start..start + len],
+        }
+    }
+
+    #[inline(always)]
+    fn get(&self, j: usize) -> Tw {
+        (self.w[j], self.q[j])
+    }
+}
+
+/// Forward transform in place: `[0, 2p)` in natural order to `[0, 2p)` in
+/// bit-reversed order.
+#[inline(never)]
+pub fn forward(a: &mut [u64], tw: &Twiddles) {
+    check_shape(a, 1, tw);
+    // A constant lane count lets the compiler drop the lane loops.
+    forward_impl(a, 1, tw)
+}
+
+/// Inverse transform in place: `[0, 4p)` in bit-reversed order to
+/// `[0, 4p)` in natural order, times the length.
+#[inline(never)]
+pub fn inverse(a: &mut [u64], tw: &Twiddles) {
+    check_shape(a, 1, tw);
+    inverse_impl(a, 1, tw)
+}
+
+/// [`forward`] on `lanes` interleaved vectors of length `tw.len()`.
+#[inline(never)]
+pub fn forward_lanes(a: &mut [u64], lanes: usize, tw: &Twiddles) {
+    check_shape(a, lanes, tw);
+    forward_impl(a, lanes, tw)
+}
+
+/// [`inverse`] on `lanes` interleaved vectors of length `tw.len()`.
+#[inline(never)]
+pub fn inverse_lanes(a: &mut [u64], lanes: usize, tw: &Twiddles) {
+    check_shape(a, lanes, tw);
+    inverse_impl(a, lanes, tw)
+}
+
+/// `a[i] = a[i] * b[i] * scale mod p`: `[0, 2p)` in and out.
+pub fn pointwise(a: &mut [u64], b: &[u64], scale: u64, m: &Modulus50) {
+    assert_eq!(a.len(), b.len(), "pointwise operands differ in length");
+    let s = montgomery_scale(scale, m);
+    for (x, &y) in a.iter_mut().zip(b) {
+        *x = mul_shoup(mul_montgomery(*x, y, m), s.w, s.q, m);
+    }
+}
+
+// The transforms fuse pairs of radix-2 stages into radix-4 steps: the four
+// values of two stages stay in registers, halving the loads and stores,
+// with the same twiddles (and products) as the radix-2 stages they replace.
+// Inlined into each public function so that one lane is a constant.
+
+#[inline(always)]
+fn forward_impl(a: &mut [u64], lanes: usize, tw: &Twiddles) {
+    let (m, t, n) = (tw.modulus(), &tw.fwd, tw.len());
+    let mut half = n / 2;
+    if n.trailing_zeros() % 2 == 1 {
+        // An odd number of stages: one radix-2 stage first.
+        radix2_stage(a, lanes, Run::new(t, half, half), |x, y, w| dif(x, y, w, m));
+        half /= 2;
+    }
+    while half >= 2 {
+        // stages `half` (= 2q) and `q`, on blocks of 4q
+        let q = half / 2;
+        let runs = [
+            Run::new(t, 2 * q, q),
+            Run::new(t, 3 * q, q),
+            Run::new(t, q, q),
+        ];
+        radix4_step(a, lanes, runs, |[v0, v1, v2, v3], [wa, wb, w2]| {
+            dif(v0, v2, wa, m);
+            dif(v1, v3, wb, m);
+            dif(v0, v1, w2, m);
+            dif(v2, v3, w2, m);
+        });
+        half /= 4;
+    }
+}
+
+#[inline(always)]
+fn inverse_impl(a: &mut [u64], lanes: usize, tw: &Twiddles) {
+    let (m, t, n) = (tw.modulus(), &tw.inv, tw.len());
+    let mut q = 1;
+    while 4 * q <= n {
+        // stages `q` and `2q`, on blocks of 4q
+        let runs = [
+            Run::new(t, q, q),
+            Run::new(t, 2 * q, q),
+            Run::new(t, 3 * q, q),
+        ];
+        radix4_step(a, lanes, runs, |[v0, v1, v2, v3], [w1, wa, wb]| {
+            dit(v0, v1, w1, m);
+            dit(v2, v3, w1, m);
+            dit(v0, v2, wa, m);
+            dit(v1, v3, wb, m);
+        });
+        q *= 4;
+    }
+    if q < n {
+        // An odd number of stages: the last one is radix-2, with half = q.
+        radix2_stage(a, lanes, Run::new(t, q, q), |x, y, w| dit(x, y, w, m));
+    }
+}
+
+/// One radix-2 stage with halves `run.len()` apart: `bf(x, y, w)` gets
+/// each pair and its twiddle.
+#[inline(always)]
+fn radix2_stage(a: &mut [u64], lanes: usize, run: Run, bf: impl Fn(&mut u64, &mut u64, Tw)) {
+    let half = run.w.len();
+    for block in a.chunks_exact_mut(2 * half * lanes) {
+        let (lo, hi) = block.split_at_mut(half * lanes);
+        for (j, (xs, ys)) in lo
+            .chunks_exact_mut(lanes)
+            .zip(hi.chunks_exact_mut(lanes))
+            .enumerate()
+        {
+            let w = run.get(j);
+            for (x, y) in xs.iter_mut().zip(ys.iter_mut()) {
+                bf(x, y, w);
+            }
+        }
+    }
+}
+
+/// One radix-4 step over blocks of `4q` (`q` the runs' length):
+/// `bf(values, twiddles)` gets the four values `q` apart (in registers,
+/// written back after) and entry `j` of each run.
+#[inline(always)]
+fn radix4_step(a: &mut [u64], lanes: usize, runs: [Run; 3], bf: impl Fn([&mut u64; 4], [Tw; 3])) {
+    let q = runs[0].w.len();
+    for block in a.chunks_exact_mut(4 * q * lanes) {
+        let [b0, b1, b2, b3] = quarters(block, q * lanes);
+        for j in 0..q {
+            let tws = runs.map(|r| r.get(j));
+            let r = j * lanes..(j + 1) * lanes;
+            for (((x0, x1), x2), x3) in b0[r.clone()]
+                .iter_mut()
+                .zip(b1[r.clone()].iter_mut())
+                .zip(b2[r.clone()].iter_mut())
+                .zip(b3[r].iter_mut())
+            {
+                let mut v = [*x0, *x1, *x2, *x3];
+                let [v0, v1, v2, v3] = &mut v;
+                bf([v0, v1, v2, v3], tws);
+                (*x0, *x1, *x2, *x3) = (v[0], v[1], v[2], v[3]);
+            }
+        }
+    }
+}
