@@ -96,9 +96,53 @@ fn transforms50(c: &mut Criterion) {
     g.finish();
 }
 
+/// The 50-bit row twiddle (`twiddle_powers`) on 4096 elements per path,
+/// throughput in elements. `cargo bench --bench kernels -- twiddle50`.
+fn twiddle50(c: &mut Criterion) {
+    use vastmul::ntt50::{primes::PRIMES as PRIMES50, Kernel};
+    let pr = &PRIMES50[0];
+    let m = pr.modulus;
+    let n = 4096usize;
+    let step = pr.root_of_unity(1 << 20);
+    let mut g = c.benchmark_group("twiddle50");
+    g.throughput(Throughput::Elements(n as u64));
+    for k in Kernel::ALL.into_iter().filter(|k| k.is_supported()) {
+        let mut a = words(n, m.p);
+        g.bench_with_input(BenchmarkId::new(k.name(), n), &n, |bch, _| {
+            bch.iter(|| k.twiddle_powers(black_box(&mut a), step, &m))
+        });
+    }
+    g.finish();
+}
+
+/// The four-prime CRT (`Crt50::coefficients`) on 4096 coefficients,
+/// throughput in coefficients. `cargo bench --bench kernels -- crt50`.
+fn crt50(c: &mut Criterion) {
+    use vastmul::ntt50::{crt::Crt50, primes::PRIMES as PRIMES50};
+    let n = 4096usize;
+    let crt = Crt50::for_transform_len(n as u64);
+    // residues of real values (times the length, as the inverse leaves
+    // them): arbitrary residues would name values past 2^192
+    let values = words(n, u64::MAX);
+    let res: Vec<Vec<u64>> = PRIMES50
+        .iter()
+        .map(|pr| {
+            let m = pr.modulus;
+            values.iter().map(|&v| m.mul(v % m.p, n as u64)).collect()
+        })
+        .collect();
+    let mut out = vec![[0u64; 3]; n];
+    let mut g = c.benchmark_group("crt50");
+    g.throughput(Throughput::Elements(n as u64));
+    g.bench_with_input(BenchmarkId::new("coefficients", n), &n, |bch, _| {
+        bch.iter(|| crt.coefficients([&res[0], &res[1], &res[2], &res[3]], black_box(&mut out)))
+    });
+    g.finish();
+}
+
 criterion_group! {
     name = benches;
     config = Criterion::default().sample_size(20).measurement_time(std::time::Duration::from_secs(2));
-    targets = transforms, transforms50
+    targets = transforms, transforms50, twiddle50, crt50
 }
 criterion_main!(benches);

@@ -23,7 +23,10 @@
 //! Vectors shorter than 16 use the scalar path; the two stages within
 //! 4-element blocks run on transposed 4x4 tiles.
 
-use super::{check_shape, quarters, require, scalar, Kernel, Modulus50, MulConst, Table, Twiddles};
+use super::{
+    check_shape, quarters, require, scalar, Kernel, Modulus50, MulConst, PowerChain, Table,
+    Twiddles,
+};
 use core::arch::x86_64::*;
 
 type D = __m256d;
@@ -87,6 +90,15 @@ pub fn pointwise(a: &mut [u64], b: &[u64], scale: u64, m: &Modulus50) {
     // SAFETY: `require` checked that the CPU has every feature the callee
     // is compiled for.
     unsafe { pointwise_all(a, b, scale, m) }
+}
+
+/// `row[j] = row[j] * step^j mod p`: `[0, 4p)` in, `[0, 2p)` out. Panics
+/// if the CPU lacks AVX2 or FMA.
+pub fn twiddle_powers(row: &mut [u64], step: u64, m: &Modulus50) {
+    require(Kernel::Avx2);
+    // SAFETY: `require` checked that the CPU has every feature the callee
+    // is compiled for.
+    unsafe { twiddle_all(row, step, m) }
 }
 
 /// The modulus' constants, broadcast.
@@ -584,6 +596,57 @@ fn pointwise_all(a: &mut [u64], b: &[u64], scale: u64, m: &Modulus50) {
     if !x.is_empty() {
         let v = mul_var(load_part(x, k), load_part(y, k), k);
         store_part(x, mul_fixed(v, s, k), k);
+    }
+}
+
+/// Vectors of powers advanced independently in [`twiddle_all`], so that
+/// the latency of one chain's product overlaps the others'.
+const CHAIN_VECTORS: usize = 4;
+
+/// `x * step^j` for one vector: `x` in `[0, 4p)`, the power `w` in
+/// `[0, 2p)`; result in `[0, 2p)`.
+///
+/// Centring `x` to `[-2p, 2p)` keeps `|x w| < 4p^2`, the bound
+/// [`mul_var`]'s quotient estimate is proved for (its rounding steps are
+/// symmetric in sign), so the product lies in `(-2p, 2p)`; adding `2p` and
+/// one conditional subtraction bring it to `[0, 2p)`.
+#[inline]
+#[target_feature(enable = "avx2,fma")]
+fn mul_power(x: D, w: D, k: Consts) -> D {
+    let r = mul_var(_mm256_sub_pd(x, k.two_p), w, k);
+    reduce_2p(_mm256_add_pd(r, k.two_p), k)
+}
+
+/// The row twiddle with plain powers as doubles: each chain advances by
+/// `step^16` through [`mul_fixed`], which keeps the powers in `(0, 2p)`
+/// (the first ones are below `p`).
+#[target_feature(enable = "avx2,fma")]
+fn twiddle_all(row: &mut [u64], step: u64, m: &Modulus50) {
+    const SPAN: usize = CHAIN_VECTORS * W;
+    let k = consts(m);
+    let chain = PowerChain::<SPAN>::new(step, m);
+    let stride = splat_tw(chain.stride);
+    let plain = chain.plain(m).map(|x| x as f64);
+    let first = plain.as_chunks::<W>().0;
+    let mut pw: [D; CHAIN_VECTORS] = core::array::from_fn(|i| {
+        _mm256_setr_pd(first[i][0], first[i][1], first[i][2], first[i][3])
+    });
+    let (blocks, rest) = row.as_chunks_mut::<SPAN>();
+    for block in blocks {
+        for (v, w) in block.as_chunks_mut::<W>().0.iter_mut().zip(pw.iter_mut()) {
+            store(v, mul_power(load(v, k), *w, k), k);
+            *w = mul_fixed(*w, stride, k);
+        }
+    }
+    // Fewer than SPAN left: whole vectors take the chains in order, and a
+    // partial one the chain after them.
+    let (vs, tail) = rest.as_chunks_mut::<W>();
+    let whole = vs.len();
+    for (v, w) in vs.iter_mut().zip(pw) {
+        store(v, mul_power(load(v, k), w, k), k);
+    }
+    if !tail.is_empty() {
+        store_part(tail, mul_power(load_part(tail, k), pw[whole], k), k);
     }
 }
 

@@ -20,8 +20,8 @@
 //! public function that first checks, at run time, that the CPU has them.
 
 use super::{
-    check_shape, montgomery_scale, quarters, require, scalar, Kernel, Modulus50, MulConst, Table,
-    Twiddles, MASK52,
+    check_shape, montgomery_scale, quarters, require, scalar, Kernel, Modulus50, MulConst,
+    PowerChain, Table, Twiddles, MASK52,
 };
 use core::arch::x86_64::*;
 
@@ -79,6 +79,15 @@ pub fn pointwise(a: &mut [u64], b: &[u64], scale: u64, m: &Modulus50) {
     // SAFETY: `require` checked that the CPU has every feature the callee
     // is compiled for.
     unsafe { pointwise_all(a, b, scale, m) }
+}
+
+/// `row[j] = row[j] * step^j mod p`: `[0, 4p)` in, `[0, 2p)` out. Panics
+/// if the CPU lacks IFMA.
+pub fn twiddle_powers(row: &mut [u64], step: u64, m: &Modulus50) {
+    require(Kernel::Ifma);
+    // SAFETY: `require` checked that the CPU has every feature the callee
+    // is compiled for.
+    unsafe { twiddle_all(row, step, m) }
 }
 
 /// The modulus' constants, broadcast.
@@ -615,6 +624,49 @@ fn pointwise_all(a: &mut [u64], b: &[u64], scale: u64, m: &Modulus50) {
     }
     if !x.is_empty() {
         store_part(x, mul_scaled(load_part(x), load_part(y), s, k));
+    }
+}
+
+/// Vectors of powers advanced independently in [`twiddle_all`]: one
+/// chain's Shoup product takes about three multiply-add latencies, which
+/// four chains cover.
+const CHAIN_VECTORS: usize = 4;
+
+/// `x` less `p` where that stays non-negative: `[0, 2p)` to `[0, p)`.
+#[inline]
+#[target_feature(enable = "avx512f,avx512ifma,avx512vl")]
+fn reduce_p(x: V, k: Consts) -> V {
+    _mm512_min_epu64(x, _mm512_sub_epi64(x, k.p))
+}
+
+/// The row twiddle as the scalar path computes it, value for value: a
+/// Montgomery product by each power (Montgomery form, below `p`, so with
+/// `x < 4p` the product stays below `2^52 p` and lands in `[0, 2p)`), the
+/// powers advanced by a Shoup product with `step^32`.
+#[target_feature(enable = "avx512f,avx512ifma,avx512vl")]
+fn twiddle_all(row: &mut [u64], step: u64, m: &Modulus50) {
+    const SPAN: usize = CHAIN_VECTORS * W;
+    let k = consts(m);
+    let chain = PowerChain::<SPAN>::new(step, m);
+    let stride = splat_tw(chain.stride);
+    let first = chain.mont.as_chunks::<W>().0;
+    let mut pw: [V; CHAIN_VECTORS] = core::array::from_fn(|i| load(&first[i]));
+    let (blocks, rest) = row.as_chunks_mut::<SPAN>();
+    for block in blocks {
+        for (v, w) in block.as_chunks_mut::<W>().0.iter_mut().zip(pw.iter_mut()) {
+            store(v, mul_montgomery(load(v), *w, k));
+            *w = reduce_p(mul_shoup(*w, stride, k), k);
+        }
+    }
+    // Fewer than SPAN left: whole vectors take the chains in order, and a
+    // partial one the chain after them.
+    let (vs, tail) = rest.as_chunks_mut::<W>();
+    let whole = vs.len();
+    for (v, w) in vs.iter_mut().zip(pw) {
+        store(v, mul_montgomery(load(v), w, k));
+    }
+    if !tail.is_empty() {
+        store_part(tail, mul_montgomery(load_part(tail), pw[whole], k));
     }
 }
 

@@ -21,9 +21,15 @@
 //! | `forward`, `forward_lanes` | `[0, 2p)` | `[0, 2p)`, bit-reversed |
 //! | `inverse`, `inverse_lanes` | `[0, 4p)`, bit-reversed | `[0, 4p)`, natural, times `n` |
 //! | `pointwise` | `a`, `b` in `[0, 2p)` | `a * b * scale` in `[0, 2p)` |
+//! | `twiddle_powers` | `[0, 4p)` | `a[j] * step^j` in `[0, 2p)` |
 //!
 //! The forward output feeds `pointwise`, whose output feeds the inverse,
-//! with no reduction pass in between.
+//! with no reduction pass in between. `twiddle_powers` accepts the wider
+//! of the two transform output ranges, so it can follow either direction,
+//! and its output suits the input of either.
+//!
+//! [`crt`] turns the four residues of a coefficient, as the inverse leaves
+//! them, back into the integer.
 //!
 //! # Choosing a path
 //! [`Kernel::detect`] picks the best path the CPU supports (detected once
@@ -31,6 +37,7 @@
 //! variable force a lower one, for comparisons and for ruling a path out
 //! when chasing a wrong result.
 
+pub mod crt;
 pub mod primes;
 pub mod scalar;
 
@@ -269,6 +276,62 @@ pub(crate) fn montgomery_scale(scale: u64, m: &Modulus50) -> MulConst {
     MulConst::new(m.mul(scale % m.p, m.r52), m)
 }
 
+/// The first `N` powers of a row twiddle's step and the multiplier that
+/// advances them by `N` positions: the row kernels run `N` independent
+/// chains of products, so the latency of one product is hidden behind the
+/// others rather than paid once per element.
+#[derive(Clone, Copy, Debug)]
+pub(crate) struct PowerChain<const N: usize> {
+    /// `step^j * 2^52 mod p` for `j < N`, in `[0, p)`: the Montgomery form,
+    /// so that a Montgomery product by it yields `x * step^j` with no
+    /// quotient to precompute for a multiplier that changes every step.
+    pub(crate) mont: [u64; N],
+    /// `step^N`, a fixed multiplier for the whole row (Shoup's quotient and
+    /// the double forms included). Multiplying a Montgomery form by a plain
+    /// value keeps it a Montgomery form.
+    pub(crate) stride: MulConst,
+}
+
+impl<const N: usize> PowerChain<N> {
+    /// The chains for `step` (any word; reduced modulo `p`). Costs two
+    /// 128-bit divisions and `N + 1` Montgomery products, so short rows
+    /// are not dominated by setup.
+    pub(crate) fn new(step: u64, m: &Modulus50) -> Self {
+        let step_mont = m.mul(step % m.p, m.r52);
+        let mut mont = [0u64; N];
+        // r52 is 1 in Montgomery form
+        let mut x = m.r52;
+        for slot in &mut mont {
+            *slot = x;
+            x = reduce_p(scalar::mul_montgomery(x, step_mont, m), m);
+        }
+        // A Montgomery product by 1 strips the factor 2^52.
+        let plain = reduce_p(scalar::mul_montgomery(x, 1, m), m);
+        PowerChain {
+            mont,
+            stride: MulConst::new(plain, m),
+        }
+    }
+
+    /// The powers `step^j mod p` themselves, in `[0, p)`, for a path that
+    /// multiplies by plain values.
+    #[cfg_attr(not(target_arch = "x86_64"), allow(dead_code))]
+    pub(crate) fn plain(&self, m: &Modulus50) -> [u64; N] {
+        self.mont
+            .map(|x| reduce_p(scalar::mul_montgomery(x, 1, m), m))
+    }
+}
+
+/// `[0, 2p)` to `[0, p)`.
+#[inline(always)]
+pub(crate) fn reduce_p(x: u64, m: &Modulus50) -> u64 {
+    if x >= m.p {
+        x - m.p
+    } else {
+        x
+    }
+}
+
 /// A kernel path. All paths compute the same functions over the same value
 /// ranges (see the module documentation); they differ in speed and in the
 /// lazy representative they leave, never in the value modulo `p`.
@@ -451,6 +514,24 @@ impl Kernel {
             _ => unsupported(self),
         }
     }
+
+    /// The four-step row twiddle: `row[j] = row[j] * step^j mod p`, input
+    /// in `[0, 4p)` (what the inverse leaves, and so also what the forward
+    /// leaves), output in `[0, 2p)` (what the forward takes). `step` is any
+    /// word, reduced modulo `p`; `step^0 = 1` even when `step = 0`. The
+    /// powers are generated as the row is swept, so no table as long as
+    /// the data is needed. Panics if the path is unsupported.
+    pub fn twiddle_powers(self, row: &mut [u64], step: u64, m: &Modulus50) {
+        match self {
+            Kernel::Scalar => scalar::twiddle_powers(row, step, m),
+            #[cfg(target_arch = "x86_64")]
+            Kernel::Avx2 => avx2::twiddle_powers(row, step, m),
+            #[cfg(target_arch = "x86_64")]
+            Kernel::Ifma => ifma::twiddle_powers(row, step, m),
+            #[cfg(not(target_arch = "x86_64"))]
+            _ => unsupported(self),
+        }
+    }
 }
 
 /// The vector paths exist only on x86-64; a hand-built `Kernel` naming one
@@ -477,6 +558,8 @@ pub type TransformFn = fn(&mut [u64], &Twiddles);
 pub type LanesFn = fn(&mut [u64], usize, &Twiddles);
 /// The type of every path's `pointwise`.
 pub type PointwiseFn = fn(&mut [u64], &[u64], u64, &Modulus50);
+/// The type of every path's `twiddle_powers`.
+pub type TwiddlePowersFn = fn(&mut [u64], u64, &Modulus50);
 
 // The three paths are interchangeable: the same function types, checked by
 // the compiler.
@@ -500,6 +583,12 @@ const _: [LanesFn; 6] = [
 ];
 #[cfg(target_arch = "x86_64")]
 const _: [PointwiseFn; 3] = [scalar::pointwise, avx2::pointwise, ifma::pointwise];
+#[cfg(target_arch = "x86_64")]
+const _: [TwiddlePowersFn; 3] = [
+    scalar::twiddle_powers,
+    avx2::twiddle_powers,
+    ifma::twiddle_powers,
+];
 
 #[cfg(test)]
 mod tests;

@@ -5,7 +5,10 @@
 //! path does, so the two paths leave the same lazy values; the AVX2 path
 //! may leave other representatives in the same ranges.
 
-use super::{check_shape, montgomery_scale, quarters, Modulus50, Table, Twiddles, MASK52};
+use super::{
+    check_shape, montgomery_scale, quarters, reduce_p, Modulus50, PowerChain, Table, Twiddles,
+    MASK52,
+};
 
 /// `x * w mod p` in `[0, 2p)` for `x < 2^52`, given `q = shoup52(w)`.
 ///
@@ -109,6 +112,31 @@ pub fn pointwise(a: &mut [u64], b: &[u64], scale: u64, m: &Modulus50) {
     let s = montgomery_scale(scale, m);
     for (x, &y) in a.iter_mut().zip(b) {
         *x = mul_shoup(mul_montgomery(*x, y, m), s.w, s.q, m);
+    }
+}
+
+/// Independent power chains in [`twiddle_powers`]: enough that the
+/// multiply latency of one chain overlaps the others.
+const CHAINS: usize = 8;
+
+/// `row[j] = row[j] * step^j mod p`: `[0, 4p)` in, `[0, 2p)` out.
+///
+/// Each element takes a Montgomery product with its power held in
+/// Montgomery form (`x < 4p` and a power below `p` keep the product below
+/// `2^52 p`, which leaves `[0, 2p)`); each chain then advances by
+/// `step^CHAINS`, a fixed multiplier with a Shoup quotient.
+pub fn twiddle_powers(row: &mut [u64], step: u64, m: &Modulus50) {
+    let chain = PowerChain::<CHAINS>::new(step, m);
+    let (s, mut pw) = (chain.stride, chain.mont);
+    let (blocks, rest) = row.as_chunks_mut::<CHAINS>();
+    for block in blocks {
+        for (x, w) in block.iter_mut().zip(pw.iter_mut()) {
+            *x = mul_montgomery(*x, *w, m);
+            *w = reduce_p(mul_shoup(*w, s.w, s.q, m), m);
+        }
+    }
+    for (x, w) in rest.iter_mut().zip(pw) {
+        *x = mul_montgomery(*x, w, m);
     }
 }
 

@@ -462,3 +462,87 @@ fn choice_of_kernel_honours_names_and_support() {
         "{msg}"
     );
 }
+
+/// `row[j] * step^j mod p` through u128 arithmetic.
+fn twiddle_reference(row: &[u64], step: u64, p: u64) -> Vec<u64> {
+    let mul = |a: u64, b: u64| ((a as u128 * b as u128) % p as u128) as u64;
+    let mut w = 1 % p;
+    row.iter()
+        .map(|&x| {
+            let r = mul(x % p, w);
+            w = mul(w, step % p);
+            r
+        })
+        .collect()
+}
+
+/// `k`'s row twiddle against [`twiddle_reference`]: every length up to 80
+/// (every partial vector and chain count) and some long ones, steps 0, 1,
+/// `p - 1`, a root of unity, words past `p` and seeded ones, inputs over
+/// the whole of `[0, 4p)` and its edges, guard words around the row.
+fn twiddle_powers_match_u128(k: Kernel) {
+    for (pi, pr) in PRIMES.iter().enumerate() {
+        let m = pr.modulus;
+        let p = m.p;
+        for len in (0..=80).chain([127, 128, 129, 1000, 4099]) {
+            let seed = (pi * 10_000 + len) as u64;
+            let r = seeded_words(2, seed);
+            let steps = [
+                0,
+                1,
+                p - 1,
+                pr.root_of_unity(1 << 20),
+                p + 5,
+                u64::MAX,
+                r[0],
+                r[1] % p,
+            ];
+            for (case, x) in inputs(len, 4 * p, seed).iter().enumerate() {
+                for step in steps {
+                    let mut g = Guarded::new(x);
+                    k.twiddle_powers(g.data(), step, &m);
+                    let got = g.finish();
+                    let want = twiddle_reference(x, step, p);
+                    for (j, (a, b)) in got.iter().zip(&want).enumerate() {
+                        let what = format!("{k:?} p{pi} len={len} case {case} step={step} j={j}");
+                        assert!(*a < 2 * p, "{what}: {a} out of range");
+                        assert_eq!(a % p, *b, "{what}");
+                    }
+                }
+            }
+        }
+    }
+}
+
+#[test]
+fn scalar_twiddle_powers_match_u128() {
+    twiddle_powers_match_u128(Kernel::Scalar);
+}
+
+#[test]
+fn avx2_twiddle_powers_match_u128() {
+    if !skip(Kernel::Avx2) {
+        twiddle_powers_match_u128(Kernel::Avx2);
+    }
+}
+
+#[test]
+fn ifma_twiddle_powers_match_u128() {
+    if !skip(Kernel::Ifma) {
+        twiddle_powers_match_u128(Kernel::Ifma);
+    }
+}
+
+/// A known case by hand: modulo the third prime, `3^j` for `j < 5` is
+/// 1, 3, 9, 27, 81, so a row of ones becomes those (up to the lazy
+/// representative, which any path may leave in `[0, 2p)`).
+#[test]
+fn twiddle_powers_of_three_by_hand() {
+    let m = PRIMES[2].modulus;
+    for k in Kernel::ALL.into_iter().filter(|k| k.is_supported()) {
+        let mut row = vec![1u64; 5];
+        k.twiddle_powers(&mut row, 3, &m);
+        let got: Vec<u64> = row.iter().map(|x| x % m.p).collect();
+        assert_eq!(got, [1, 3, 9, 27, 81], "{k:?}");
+    }
+}

@@ -1,0 +1,390 @@
+//! Chinese remainder reconstruction of a convolution coefficient from its
+//! residues modulo the four primes of [`super::primes::PRIMES`], in
+//! Garner's mixed-radix form.
+//!
+//! With `x_i` the residue modulo `p_i` and `P_i = p_0 ... p_(i-1)`, the
+//! mixed-radix digits are
+//! `y_i = (x_i - y_0 - P_1 y_1 - ... - P_(i-1) y_(i-1)) / P_i mod p_i`,
+//! each in `[0, p_i)`, and the value is `y_0 + P_1 y_1 + P_2 y_2 + P_3 y_3`,
+//! the unique integer in `[0, P_4)` with those residues. Every constant
+//! (`P_j / P_i mod p_i`, the scales' inverses) is derived from the primes at
+//! construction. The transform leaves each residue multiplied by a known
+//! scale (the inverse transform's length); its inverse is folded into the
+//! constant that multiplies `x_i`, so no scaling pass is needed.
+//!
+//! # Why 192 bits hold a coefficient
+//! A product coefficient is a sum of at most `m = min(len a, len b)` limb
+//! products, each at most `(2^64 - 1)^2`, so it is below
+//! `m (2^64 - 1)^2 < 2^64 * 2^128 = 2^192` for any `m` that fits a word.
+//! [`super::primes`] shows the same bound is below `P_4` (just under 2^200),
+//! so the reconstruction is exact and its top word, bits 192 and up, is
+//! zero. A non-zero top word means the residues do not come from such a
+//! coefficient (corrupted data); [`Crt50::combine`] debug-asserts against
+//! it and [`Crt50::coefficients`] asserts once per call.
+
+use super::primes::PRIMES;
+use super::scalar::mul_shoup;
+use super::{reduce_p, Modulus50, MulConst, MASK52};
+
+/// The number of primes combined.
+const K: usize = PRIMES.len();
+
+/// Garner constants for residues that carry a known scale per prime.
+#[derive(Clone, Debug)]
+pub struct Crt50 {
+    /// The primes' constants, in [`PRIMES`] order.
+    m: [Modulus50; K],
+    /// `s[i] = scale_i^-1 / P_i mod p_i`: turns a scaled residue into the
+    /// first term of `y_i`.
+    s: [MulConst; K],
+    /// `c[i][j] = P_j / P_i mod p_i` for `j < i`: the weight with which
+    /// `y_j` is taken off `y_i`.
+    c: [[MulConst; K]; K],
+}
+
+impl Crt50 {
+    /// Constants for residues `x_i * scale[i] mod p_i` (each scale non-zero
+    /// modulo its prime). For the output of an inverse transform of length
+    /// `n` with unscaled pointwise products, `scale[i] = n`; see
+    /// [`Crt50::for_transform_len`].
+    pub fn new(scale: [u64; K]) -> Self {
+        let m = PRIMES.map(|pr| pr.modulus);
+        let zero = MulConst::new(0, &m[0]);
+        let mut s = [zero; K];
+        let mut c = [[zero; K]; K];
+        for i in 0..K {
+            let mi = &m[i];
+            assert!(
+                !scale[i].is_multiple_of(mi.p),
+                "scale {} is 0 modulo {}",
+                scale[i],
+                mi.p
+            );
+            // prefix[j] = P_j mod p_i, for j <= i
+            let mut prefix = [1 % mi.p; K + 1];
+            for j in 0..i {
+                prefix[j + 1] = mi.mul(prefix[j], m[j].p % mi.p);
+            }
+            let inv_pi = mi.inv(prefix[i]);
+            s[i] = MulConst::new(mi.mul(mi.inv(scale[i] % mi.p), inv_pi), mi);
+            for j in 0..i {
+                c[i][j] = MulConst::new(mi.mul(prefix[j], inv_pi), mi);
+            }
+        }
+        Crt50 { m, s, c }
+    }
+
+    /// Constants for the residues an inverse transform of length `n`
+    /// leaves when nothing else scaled them: each is `n` times the value.
+    pub fn for_transform_len(n: u64) -> Self {
+        Crt50::new([n; K])
+    }
+
+    /// The mixed-radix digits `y_i` in `[0, p_i)` of scaled, lazily reduced
+    /// residues (each below 2^52, which covers `[0, 4p)`).
+    #[inline(always)]
+    fn digits(&self, r: [u64; K]) -> [u64; K] {
+        let mut y = [0u64; K];
+        for i in 0..K {
+            let (m, s) = (&self.m[i], &self.s[i]);
+            debug_assert!(r[i] <= MASK52, "residue {} exceeds 52 bits", r[i]);
+            // Every term stays in [0, 2p): a Shoup product leaves [0, 2p),
+            // and a difference is lifted by 2p and brought back down, so no
+            // intermediate needs a division.
+            let mut acc = mul_shoup(r[i], s.w, s.q, m);
+            for (&yj, c) in y[..i].iter().zip(&self.c[i]) {
+                let t = acc + m.two_p - mul_shoup(yj, c.w, c.q, m);
+                acc = if t >= m.two_p { t - m.two_p } else { t };
+            }
+            y[i] = reduce_p(acc, m);
+        }
+        y
+    }
+
+    /// The integer in `[0, p_0 p_1 p_2 p_3)` with the given scaled, lazily
+    /// reduced residues (each below 2^52), as four little-endian words.
+    #[inline(always)]
+    pub fn combine_wide(&self, r: [u64; K]) -> [u64; 4] {
+        let y = self.digits(r);
+        let p = self.m.map(|m| m.p as u128);
+        // Horner from the top digit: y3 p2 + y2 < 2^100 fits a u128, then
+        // one word at a time as the value widens past it.
+        let a = y[3] as u128 * p[2] + y[2] as u128;
+        let (b, b_hi) = mul_add_2(a, p[1], y[1]);
+        let lo = (b as u64) as u128 * p[0] + y[0] as u128;
+        let mid = (b >> 64) * p[0] + (lo >> 64);
+        let hi = b_hi as u128 * p[0] + (mid >> 64);
+        [lo as u64, mid as u64, hi as u64, (hi >> 64) as u64]
+    }
+
+    /// The coefficient with the given scaled, lazily reduced residues (each
+    /// below 2^52, which covers `[0, 4p)`), as three little-endian words.
+    /// The value must be below 2^192, which every product coefficient is
+    /// (module notes); debug builds assert it.
+    #[inline(always)]
+    pub fn combine(&self, r: [u64; K]) -> [u64; 3] {
+        let [w0, w1, w2, w3] = self.combine_wide(r);
+        debug_assert_eq!(w3, 0, "coefficient exceeds 192 bits");
+        [w0, w1, w2]
+    }
+
+    /// [`Crt50::combine`] for every position: `out[k]` from
+    /// `residues[i][k]`. Panics if the lengths differ, or if any value is
+    /// 2^192 or more (checked once, after the loop, so the check costs one
+    /// OR per coefficient).
+    pub fn coefficients(&self, residues: [&[u64]; K], out: &mut [[u64; 3]]) {
+        let n = out.len();
+        assert!(
+            residues.iter().all(|r| r.len() == n),
+            "residue slices and output differ in length"
+        );
+        let [r0, r1, r2, r3] = residues.map(|r| &r[..n]);
+        let mut top = 0u64;
+        for (k, o) in out.iter_mut().enumerate() {
+            let [w0, w1, w2, w3] = self.combine_wide([r0[k], r1[k], r2[k], r3[k]]);
+            *o = [w0, w1, w2];
+            top |= w3;
+        }
+        assert_eq!(
+            top, 0,
+            "coefficient exceeds 192 bits: the residues are not those of a product"
+        );
+    }
+}
+
+/// `a * b + c` for `a < 2^100`, `b, c < 2^64`, as a low u128 and a high
+/// word (the result is below 2^164).
+#[inline(always)]
+fn mul_add_2(a: u128, b: u128, c: u64) -> (u128, u64) {
+    let lo = (a as u64) as u128 * b + c as u128;
+    let hi = (a >> 64) * b + (lo >> 64);
+    (
+        ((hi as u64) as u128) << 64 | (lo as u64) as u128,
+        (hi >> 64) as u64,
+    )
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use crate::ntt50::primes::{prime_product, MAX_TRANSFORM_LEN};
+    use crate::ntt50::{Kernel, Twiddles};
+    use crate::test_oracles::{schoolbook_convolution, seeded_words};
+    use num_bigint::BigUint;
+
+    fn big(words: &[u64]) -> BigUint {
+        let bytes: Vec<u8> = words.iter().flat_map(|w| w.to_le_bytes()).collect();
+        BigUint::from_bytes_le(&bytes)
+    }
+
+    fn residue(v: &BigUint, p: u64) -> u64 {
+        (v % BigUint::from(p))
+            .to_u64_digits()
+            .first()
+            .copied()
+            .unwrap_or(0)
+    }
+
+    /// The residues of `v` as the transform leaves them: times the scale,
+    /// then lifted by `lift[i]` multiples of `p_i` (at most 3, so below
+    /// `4p_i`).
+    fn scaled_residues(v: &BigUint, scale: [u64; K], lift: [u64; K]) -> [u64; K] {
+        core::array::from_fn(|i| {
+            let m = PRIMES[i].modulus;
+            m.mul(residue(v, m.p), scale[i]) + lift[i] * m.p
+        })
+    }
+
+    /// Scales used throughout: a transform length, 1, `p - 1` (every prime's
+    /// own), and seeded words.
+    fn scales() -> Vec<[u64; K]> {
+        let w = seeded_words(4, 77);
+        vec![
+            [1 << 20; K],
+            [1; K],
+            PRIMES.map(|pr| pr.modulus.p - 1),
+            [w[0], w[1], w[2], w[3]],
+            [3 << 31, 1 << 32, 5, u64::MAX],
+        ]
+    }
+
+    /// The values that matter: 0, the neighbours of every partial prime
+    /// product (where Garner's digits carry), of the largest coefficient a
+    /// transform of maximal length can hold, and of 2^192.
+    fn special_values() -> Vec<BigUint> {
+        let one = BigUint::from(1u32);
+        let max_limb_sq = BigUint::from(u64::MAX) * BigUint::from(u64::MAX);
+        let mut centres = vec![
+            &max_limb_sq * BigUint::from(MAX_TRANSFORM_LEN),
+            max_limb_sq,
+            one.clone() << 128usize,
+            one.clone() << 64usize,
+        ];
+        let mut prefix = one.clone();
+        for pr in &PRIMES[..K - 1] {
+            prefix *= BigUint::from(pr.modulus.p);
+            centres.push(prefix.clone());
+            centres.push(BigUint::from(pr.modulus.p));
+        }
+        let mut values = vec![BigUint::from(0u32), one.clone()];
+        for c in centres {
+            values.push(&c - &one);
+            values.push(&c + &one);
+            values.push(c);
+        }
+        let top = one.clone() << 192usize;
+        values.push(&top - &one);
+        values.push(&top - BigUint::from(2u32));
+        values
+    }
+
+    /// Seeded values below 2^192 of every size from 1 to 192 bits.
+    fn random_values(count: usize, seed: u64) -> Vec<BigUint> {
+        let w = seeded_words(3 * count, seed);
+        (0..count)
+            .map(|k| big(&w[3 * k..3 * k + 3]) >> (k % 192))
+            .collect()
+    }
+
+    #[test]
+    fn combine_recovers_coefficients_below_2_to_192() {
+        let mut values = special_values();
+        values.extend(random_values(2000, 5));
+        let lifts: [[u64; K]; 3] = [[0; K], [3; K], [1, 2, 3, 0]];
+        for scale in scales() {
+            let crt = Crt50::new(scale);
+            for (n, v) in values.iter().enumerate() {
+                let r = scaled_residues(v, scale, lifts[n % 3]);
+                let got = crt.combine(r);
+                assert_eq!(big(&got), *v, "scale {scale:?} residues {r:?}");
+                assert_eq!(big(&crt.combine_wide(r)), *v);
+            }
+        }
+    }
+
+    /// Residues at the very top of their range, `4p_i - 1`, alone and
+    /// together, with `combine_wide` over the whole range `[0, P)`: the
+    /// sums inside the digits reach their largest there.
+    #[test]
+    fn residues_at_the_top_of_their_ranges() {
+        let p_all = big(&prime_product());
+        let p_big = PRIMES.map(|pr| BigUint::from(pr.modulus.p));
+        for scale in scales() {
+            let crt = Crt50::new(scale);
+            for mask in 0u32..16 {
+                // residue i is 4p_i - 1 where bit i is set, else 0 or 2p_i
+                let r: [u64; K] = core::array::from_fn(|i| {
+                    let p = PRIMES[i].modulus.p;
+                    if mask >> i & 1 == 1 {
+                        4 * p - 1
+                    } else {
+                        (mask as u64 % 2) * 2 * p
+                    }
+                });
+                // the value by the textbook CRT over big integers
+                let mut v = BigUint::from(0u32);
+                for i in 0..K {
+                    let m = PRIMES[i].modulus;
+                    let x = m.mul(r[i] % m.p, m.inv(scale[i] % m.p));
+                    let others = &p_all / &p_big[i];
+                    let inv = m.inv(residue(&others, m.p));
+                    v += others * BigUint::from(m.mul(x, inv));
+                }
+                v %= &p_all;
+                assert_eq!(big(&crt.combine_wide(r)), v, "mask {mask:b}");
+            }
+            // and values just below P, whose residues are all lifted by 3p
+            let one = BigUint::from(1u32);
+            for v in [&p_all - &one, &p_all - BigUint::from(2u32)] {
+                let r = scaled_residues(&v, scale, [3; K]);
+                assert_eq!(big(&crt.combine_wide(r)), v);
+            }
+        }
+    }
+
+    #[test]
+    fn coefficients_match_combine_and_num_bigint() {
+        let scale = [1 << 12; K];
+        let crt = Crt50::for_transform_len(1 << 12);
+        let mut values = special_values();
+        values.extend(random_values(500, 9));
+        let rs: Vec<[u64; K]> = values
+            .iter()
+            .enumerate()
+            .map(|(n, v)| scaled_residues(v, scale, [n as u64 % 4; K]))
+            .collect();
+        let cols: [Vec<u64>; K] = core::array::from_fn(|i| rs.iter().map(|r| r[i]).collect());
+        let mut out = vec![[0u64; 3]; values.len()];
+        crt.coefficients([&cols[0], &cols[1], &cols[2], &cols[3]], &mut out);
+        for (o, v) in out.iter().zip(&values) {
+            assert_eq!(big(o), *v);
+        }
+    }
+
+    #[test]
+    #[should_panic(expected = "coefficient exceeds 192 bits")]
+    fn coefficients_refuse_2_to_192() {
+        let crt = Crt50::new([1; K]);
+        let v = BigUint::from(1u32) << 192usize;
+        let r = scaled_residues(&v, [1; K], [0; K]);
+        let cols = r.map(|x| vec![0, x]);
+        let mut out = vec![[0u64; 3]; 2];
+        crt.coefficients([&cols[0], &cols[1], &cols[2], &cols[3]], &mut out);
+    }
+
+    #[test]
+    #[should_panic(expected = "differ in length")]
+    fn coefficients_refuse_mismatched_lengths() {
+        let crt = Crt50::new([1; K]);
+        let (a, b) = (vec![0u64; 3], vec![0u64; 2]);
+        let mut out = vec![[0u64; 3]; 3];
+        crt.coefficients([&a, &a, &b, &a], &mut out);
+    }
+
+    #[test]
+    #[should_panic(expected = "is 0 modulo")]
+    fn a_scale_divisible_by_a_prime_is_refused() {
+        Crt50::new([1, 1, PRIMES[2].modulus.p, 1]);
+    }
+
+    /// Whole products through the transforms of every path this CPU runs:
+    /// four primes, unscaled pointwise products, the length folded into
+    /// the CRT, against the schoolbook product; all-maximal limbs give the
+    /// largest coefficients.
+    #[test]
+    fn transforms_and_crt_give_exact_products() {
+        let n = 256usize;
+        let crt = Crt50::for_transform_len(n as u64);
+        let operands = [
+            (seeded_words(100, 1), seeded_words(156, 2)),
+            (vec![u64::MAX; 128], vec![u64::MAX; 128]),
+            (vec![u64::MAX; 1], seeded_words(200, 3)),
+        ];
+        for k in Kernel::ALL.into_iter().filter(|k| k.is_supported()) {
+            for (a, b) in &operands {
+                let res: Vec<Vec<u64>> = PRIMES
+                    .iter()
+                    .map(|pr| {
+                        let (m, tw) = (pr.modulus, Twiddles::new(pr, n));
+                        let lift = |x: &[u64]| {
+                            let mut v: Vec<u64> = x.iter().map(|w| w % m.p).collect();
+                            v.resize(n, 0);
+                            v
+                        };
+                        let (mut fa, mut fb) = (lift(a), lift(b));
+                        k.forward(&mut fa, &tw);
+                        k.forward(&mut fb, &tw);
+                        k.pointwise(&mut fa, &fb, 1, &m);
+                        k.inverse(&mut fa, &tw);
+                        fa
+                    })
+                    .collect();
+                let mut out = vec![[0u64; 3]; n];
+                crt.coefficients([&res[0], &res[1], &res[2], &res[3]], &mut out);
+                let mut want = schoolbook_convolution(a, b);
+                want.resize(n, [0; 3]);
+                assert_eq!(out, want, "{k:?} {}x{}", a.len(), b.len());
+            }
+        }
+    }
+}
