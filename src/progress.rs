@@ -185,6 +185,18 @@ impl Meter {
             Some(i) => {
                 let skipped: u64 = inner.passes[inner.next..i].iter().map(|p| p.1).sum();
                 inner.finished_weight += skipped as f64;
+                let count = inner.passes.len();
+                for j in inner.next..i {
+                    let name = inner.passes[j].0.clone();
+                    inner.events.push(Event::PassDone(PassDone {
+                        index: Some(j + 1),
+                        count,
+                        name,
+                        seconds: 0.0,
+                        bytes_per_second: None,
+                        done_before: true,
+                    }));
+                }
                 inner.next = i + 1;
                 inner.first_start.get_or_insert(now);
                 inner.passes[i].1
@@ -474,7 +486,8 @@ mod tests {
             .iter()
             .map(|e| matches!(e, Event::PassDone(d) if d.done_before))
             .collect();
-        assert_eq!(done, [false, true]);
+        // "one" was skipped whole, "two" resumed, "three" found complete.
+        assert_eq!(done, [true, false, true]);
     }
 
     #[test]

@@ -225,3 +225,94 @@ fn quiet_silences_bars_lines_and_summary() {
     assert_eq!(o.status.code(), Some(4));
     assert!(String::from_utf8_lossy(&o.stderr).contains("c.txt"));
 }
+
+/// The last journal record's step in the run's state directory in `dir`
+/// (records are 80 bytes; the step is the little-endian u16 at byte 4).
+fn journal_step(dir: &Path) -> Option<u16> {
+    let state = std::fs::read_dir(dir).ok()?.flatten().find(|e| {
+        e.file_name()
+            .to_string_lossy()
+            .starts_with(".vastmul-state-")
+    })?;
+    let bytes = std::fs::read(state.path().join("journal")).ok()?;
+    let whole = bytes.len() / 80 * 80;
+    (whole > 0).then(|| u16::from_le_bytes([bytes[whole - 76], bytes[whole - 75]]))
+}
+
+/// The overall percentage of a status line (`...; overall 41.5%, ...`).
+fn overall_percent(line: &str) -> Option<f64> {
+    let rest = &line[line.find("; overall ")? + 10..];
+    rest[..rest.find('%')?].parse().ok()
+}
+
+#[test]
+fn after_a_resume_the_display_starts_where_the_run_stopped() {
+    let t = tempfile::tempdir().unwrap();
+    let d = t.path();
+    operands(d);
+    // Stopped by SIGINT once the rows of the first prime are under way
+    // (journal step 2), so the columns of A and of B for prime 0 are done.
+    let mut child = Command::new(BIN)
+        .args(MUL)
+        .current_dir(d)
+        .env("VASTMUL_PROGRESS_EVERY", "0.05")
+        .stderr(std::process::Stdio::piped())
+        .spawn()
+        .unwrap();
+    let started = std::time::Instant::now();
+    while journal_step(d).is_none_or(|s| s < 2) {
+        if child.try_wait().unwrap().is_some() {
+            println!("skipped: the run finished before it could be interrupted");
+            return;
+        }
+        assert!(
+            started.elapsed().as_secs() < 120,
+            "no progress in the journal"
+        );
+        std::thread::sleep(std::time::Duration::from_millis(2));
+    }
+    // SAFETY: kill only sends a signal to our own child's pid.
+    unsafe {
+        libc::kill(child.id() as i32, libc::SIGINT);
+    }
+    let o = child.wait_with_output().unwrap();
+    if o.status.success() {
+        println!("skipped: the run completed before the signal arrived");
+        return;
+    }
+    assert_eq!(o.status.code(), Some(130), "{o:?}");
+
+    let o = Command::new(BIN)
+        .args(MUL)
+        .current_dir(d)
+        .env("VASTMUL_PROGRESS_EVERY", "0.05")
+        .output()
+        .unwrap();
+    assert!(o.status.success(), "{o:?}");
+    let err = String::from_utf8_lossy(&o.stderr);
+    assert!(err.contains("resuming from"), "{err}");
+    // The passes the first run completed are reported as done before, not
+    // as done in no time.
+    for pass in ["pass 1/12 columns of A", "pass 2/12 columns of B, prime 0"] {
+        let line = err
+            .lines()
+            .find(|l| l.contains(pass))
+            .unwrap_or_else(|| panic!("no line for {pass} in {err}"));
+        assert!(line.ends_with("done before the interruption"), "{line}");
+    }
+    // The first status line already counts them: past the two column
+    // passes' share of the bytes, not at zero.
+    let first = err
+        .lines()
+        .find_map(overall_percent)
+        .unwrap_or_else(|| panic!("no status line in {err}"));
+    assert!(
+        first > 10.0,
+        "overall {first}% right after the resume: {err}"
+    );
+    // Every pass after them runs, and ends done.
+    for i in 3..=12 {
+        let needle = format!("done pass {i}/12 ");
+        assert!(err.contains(&needle), "{needle} in {err}");
+    }
+}
