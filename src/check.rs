@@ -8,7 +8,9 @@
 //! that a wrong product passes.
 
 use crate::format::{Format, Operand, Released};
+use crate::progress::METER;
 use crate::residue::{mul_mod, random_moduli, residues, signed, FIXED_MODULI};
+use crate::storage::LimbSource;
 use crate::{Error, Result};
 use serde::Serialize;
 use std::path::{Path, PathBuf};
@@ -59,10 +61,35 @@ pub struct CheckReport {
     pub manifest_agrees: Option<bool>,
 }
 
+/// A limb source that reports the limbs read to the progress meter, so that
+/// a check of files of many gigabytes shows how far it is.
+struct Counted<'a, S: ?Sized>(&'a S);
+
+impl<S: LimbSource + ?Sized> LimbSource for Counted<'_, S> {
+    fn fill_limbs(&self, first: usize, out: &mut [u64]) {
+        self.0.fill_limbs(first, out);
+        METER.advance(out.len() as u64);
+    }
+
+    fn prefetch_limbs(&self, first: usize, n: usize) {
+        self.0.prefetch_limbs(first, n)
+    }
+}
+
 /// The signed residues of an operand file modulo each of `moduli`.
 fn file_residues(path: &Path, format: Option<Format>, moduli: &[u64]) -> Result<Vec<u64>> {
-    let op = Operand::open(path, format)?;
-    let r = residues(&Released(&op), op.limb_count(), op.radix(), moduli);
+    let op = crate::progress::phase(&format!("read and validate {}", path.display()), || {
+        Operand::open(path, format)
+    })?;
+    METER.begin(&format!("residues of {}", path.display()));
+    METER.add_units(op.limb_count() as u64, 0);
+    let r = residues(
+        &Counted(&Released(&op)),
+        op.limb_count(),
+        op.radix(),
+        moduli,
+    );
+    METER.end();
     Ok(r.iter()
         .zip(moduli)
         .map(|(&x, &p)| signed(x, op.is_negative(), p))

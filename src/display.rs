@@ -108,8 +108,8 @@ fn bars(stop: &AtomicBool) {
         .expect("a valid template")
         .progress_chars("=> ");
     let pass = multi.add(ProgressBar::new(1000).with_style(style.clone()));
-    let overall = multi.add(ProgressBar::new(1000).with_style(style));
-    overall.set_prefix("overall");
+    // The whole-run bar appears once a plan gives the run a size.
+    let mut overall: Option<ProgressBar> = None;
     let mut shown = false;
     loop {
         let stopping = stop.load(Ordering::Relaxed);
@@ -128,16 +128,18 @@ fn bars(stop: &AtomicBool) {
             pass.set_prefix(position(p));
             pass.set_position((p.fraction.unwrap_or(0.0) * 1000.0) as u64);
             pass.set_message(pass_text(p));
-            match &s.overall {
-                Some(o) => {
-                    overall.set_position((o.fraction * 1000.0) as u64);
-                    overall.set_message(format!(
-                        "elapsed {}, ETA {}",
-                        human(o.elapsed),
-                        o.eta.map_or("?".into(), human)
-                    ));
-                }
-                None => overall.set_message("planning"),
+            if let Some(o) = &s.overall {
+                let bar = overall.get_or_insert_with(|| {
+                    let bar = multi.add(ProgressBar::new(1000).with_style(style.clone()));
+                    bar.set_prefix("overall");
+                    bar
+                });
+                bar.set_position((o.fraction * 1000.0) as u64);
+                bar.set_message(format!(
+                    "elapsed {}, ETA {}",
+                    human(o.elapsed),
+                    o.eta.map_or("?".into(), human)
+                ));
             }
         } else if shown {
             pass.set_message("");
@@ -145,7 +147,9 @@ fn bars(stop: &AtomicBool) {
         std::thread::sleep(TICK);
     }
     pass.finish_and_clear();
-    overall.finish_and_clear();
+    if let Some(bar) = overall {
+        bar.finish_and_clear();
+    }
     let _ = multi.clear();
 }
 
@@ -174,11 +178,11 @@ fn lines(stop: &AtomicBool, every: Duration) {
     }
 }
 
-/// "pass 3/12", or "prepare" outside the plan.
+/// "pass 3/12", or nothing outside a plan (the message names the step).
 fn position(p: &PassView) -> String {
     match p.index {
         Some(i) => format!("pass {i}/{}", p.count),
-        None => "prepare".into(),
+        None => String::new(),
     }
 }
 

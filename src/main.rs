@@ -443,14 +443,15 @@ fn run(cli: Cli) -> Result<(), Error> {
                     ))
                 }
             };
-            let r = vastmul::check::check(&vastmul::check::CheckRequest {
+            let request = vastmul::check::CheckRequest {
                 a,
                 b,
                 c,
                 format: in_format.map(Into::into),
                 seed,
                 random,
-            })?;
+            };
+            let r = with_progress(quiet, || vastmul::check::check(&request))?;
             if json {
                 println!(
                     "{}",

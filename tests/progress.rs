@@ -316,3 +316,30 @@ fn after_a_resume_the_display_starts_where_the_run_stopped() {
         assert!(err.contains(&needle), "{needle} in {err}");
     }
 }
+
+#[test]
+fn check_reports_each_file_it_reads() {
+    let t = tempfile::tempdir().unwrap();
+    operands(t.path());
+    let o = Command::new(BIN)
+        .args(["mul", "a.txt", "b.txt", "-o", "c.txt", "--quiet"])
+        .current_dir(t.path())
+        .output()
+        .unwrap();
+    assert!(o.status.success(), "{o:?}");
+    let o = Command::new(BIN)
+        .args(["check", "a.txt", "b.txt", "c.txt"])
+        .current_dir(t.path())
+        .env("VASTMUL_PROGRESS_EVERY", "0.01")
+        .output()
+        .unwrap();
+    assert!(o.status.success(), "{o:?}");
+    let err = String::from_utf8_lossy(&o.stderr);
+    for f in ["a.txt", "b.txt", "c.txt"] {
+        let needle = format!("vastmul: done residues of {f}: ");
+        assert!(err.contains(&needle), "{needle} in {err}");
+    }
+    // The verdict stays on stdout, the progress on stderr.
+    assert!(String::from_utf8_lossy(&o.stdout).contains("check passed"));
+    assert!(!err.contains("check passed"), "{err}");
+}
