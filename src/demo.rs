@@ -9,7 +9,6 @@
 //! modulo five primes recomputed from the three files.
 
 use crate::job::{multiply_files, MulOptions, MulReport};
-use crate::plan::Force;
 use crate::radix::Radix;
 use crate::{Error, Result};
 use std::path::{Path, PathBuf};
@@ -64,10 +63,6 @@ pub fn run(o: &DemoOptions) -> Result<DemoReport> {
     let a = dir.join("ledger-east.txt");
     let b = dir.join("ledger-west.txt");
     let c = dir.join("ledger-product.txt");
-    if o.force {
-        // The product's manifest goes with it.
-        let _ = std::fs::remove_file(crate::manifest::path_for(&c));
-    }
     let t = Instant::now();
     crate::progress::phase("generate the operands", || -> Result<()> {
         crate::gen::generate(&a, o.digits, 2026, Radix::Decimal, o.force)?;
@@ -78,22 +73,10 @@ pub fn run(o: &DemoOptions) -> Result<DemoReport> {
     crate::usage::reset_peak_rss();
     let t = Instant::now();
     let mul = multiply_files(&MulOptions {
-        a: a.clone(),
-        b: b.clone(),
-        output: c.clone(),
-        in_format: None,
-        out_format: None,
         force: o.force,
         threads: o.threads,
-        algorithm: Force::Auto,
         memory: Some(o.memory),
-        scratch: None,
-        restart: false,
-        keep_state: false,
-        checkpoint: true,
-        self_check: true,
-        tamper: None,
-        faults: None,
+        ..MulOptions::new(&a, &b, &c)
     })?;
     let mul_seconds = t.elapsed().as_secs_f64();
     // A mismatch is an error: the demo fails loudly.

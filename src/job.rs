@@ -64,6 +64,32 @@ pub struct MulOptions {
     pub faults: Option<std::sync::Arc<crate::faults::FaultPlan>>,
 }
 
+impl MulOptions {
+    /// `a x b` into `output` with the command line's defaults: formats
+    /// detected, nothing replaced, every core, the planner's choice, half of
+    /// RAM, scratch beside the output, checkpoints and the self-check on.
+    pub fn new(a: impl Into<PathBuf>, b: impl Into<PathBuf>, output: impl Into<PathBuf>) -> Self {
+        MulOptions {
+            a: a.into(),
+            b: b.into(),
+            output: output.into(),
+            in_format: None,
+            out_format: None,
+            force: false,
+            threads: std::thread::available_parallelism().map_or(1, |n| n.get()),
+            algorithm: Force::Auto,
+            memory: None,
+            scratch: None,
+            restart: false,
+            keep_state: false,
+            checkpoint: true,
+            self_check: true,
+            tamper: None,
+            faults: None,
+        }
+    }
+}
+
 /// Damage to a computed product, for testing that the self-check sees it.
 #[doc(hidden)]
 #[derive(Clone, Copy, Debug, PartialEq)]

@@ -21,8 +21,9 @@
 
 use crate::carry::{self, U192};
 use crate::engine::{Product, Timer};
-use crate::fourstep::{BlockLog, FourStep, Metered, Shape};
+use crate::fourstep::{BlockLog, FourStep, Shape};
 use crate::plan::Plan;
+use crate::progress::METER;
 use crate::state::{Journal, Record};
 use crate::storage::{words_as_bytes, LimbSource, Store};
 use crate::Result;
@@ -78,9 +79,15 @@ struct StepLog<'a> {
     new: &'a Mutex<Vec<Record>>,
 }
 
+// An out-of-core run is always the top-level job (nothing nests one), so
+// its blocks go straight to the progress meter.
 impl BlockLog for StepLog<'_> {
     fn done(&self, block: usize) -> bool {
         self.done.get(block).copied().unwrap_or(false)
+    }
+
+    fn started(&self, blocks: usize, already: usize) {
+        METER.add_units(blocks as u64, already as u64);
     }
 
     fn wants_hash(&self) -> bool {
@@ -88,6 +95,7 @@ impl BlockLog for StepLog<'_> {
     }
 
     fn finished(&self, block: usize, hash: Option<blake3::Hash>) -> Result<()> {
+        METER.advance(1);
         if let (Some(j), Some(h)) = (self.journal, hash) {
             let r = Record {
                 step: self.step,
@@ -492,8 +500,7 @@ impl<'a> OutOfCore<'a> {
             let a_refs: Vec<&dyn Store> = self.a.iter().map(|s| &**s).collect();
             self.fs.check_zero_tail(&a_refs, count)?;
         }
-        let report = timer.report;
-        let len = timer.pass("CRT and carry", || self.carry_pass(count, report))?;
+        let len = timer.pass("CRT and carry", || self.carry_pass(count))?;
         self.release_transforms()?;
         Ok(len)
     }
@@ -519,19 +526,12 @@ impl<'a> OutOfCore<'a> {
                 .iter()
                 .map(|&k| self.log(step::COLUMNS_A, k as u16))
                 .collect();
-            let metered: Vec<Metered> = logs.iter().map(|l| Metered(l)).collect();
-            let log_refs: Vec<&dyn BlockLog> = if timer.report {
-                metered.iter().map(|l| l as &dyn BlockLog).collect()
-            } else {
-                logs.iter().map(|l| l as &dyn BlockLog).collect()
-            };
+            let log_refs: Vec<&dyn BlockLog> = logs.iter().map(|l| l as &dyn BlockLog).collect();
             let stores: Vec<&dyn Store> = parts.iter().map(|&k| &*self.a[k]).collect();
             timer.pass("columns of A, three primes", || {
                 self.fs.forward_columns(a, la, &parts, &stores, &log_refs)?;
                 self.checkpoint(false)
             })?;
-            drop(log_refs);
-            drop(metered);
             drop(logs);
             self.absorb();
         }
@@ -541,28 +541,21 @@ impl<'a> OutOfCore<'a> {
             }
             let [nb, nr, ni] = pass_names(k);
             let b_store: Option<&dyn Store> = (!self.plan.square).then_some(&*self.s);
-            let report = timer.report;
             if let Some(s) = b_store {
                 let log = self.log(step::columns_b(k), 0);
-                let m = Metered(&log);
-                let log: &dyn BlockLog = if report { &m } else { &log };
                 timer.pass(nb, || {
-                    self.fs.forward_columns(b, lb, &[k], &[s], &[log])?;
+                    self.fs.forward_columns(b, lb, &[k], &[s], &[&log])?;
                     self.checkpoint(false)
                 })?;
             }
             let log = self.log(step::rows(k), 0);
-            let m = Metered(&log);
-            let log: &dyn BlockLog = if report { &m } else { &log };
             timer.pass(nr, || {
-                self.fs.rows(k, &*self.a[k], b_store, &*self.p, log)?;
+                self.fs.rows(k, &*self.a[k], b_store, &*self.p, &log)?;
                 self.checkpoint(false)
             })?;
             let log = self.log(step::inverse(k), 0);
-            let m = Metered(&log);
-            let log: &dyn BlockLog = if report { &m } else { &log };
             timer.pass(ni, || {
-                self.fs.inverse_columns(k, &*self.p, &*self.a[k], log)?;
+                self.fs.inverse_columns(k, &*self.p, &*self.a[k], &log)?;
                 self.checkpoint(false)
             })?;
             self.absorb();
@@ -595,7 +588,7 @@ impl<'a> OutOfCore<'a> {
 
     /// The carry pass, window by window from the first not yet journaled,
     /// each window's carry recorded with it.
-    fn carry_pass(&self, count: usize, report: bool) -> Result<usize> {
+    fn carry_pass(&self, count: usize) -> Result<usize> {
         let window = self.window;
         let windows = count.div_ceil(window);
         let done = self.done.get(&(step::CARRY, 0));
@@ -607,9 +600,7 @@ impl<'a> OutOfCore<'a> {
         let a_refs: Vec<&dyn Store> = self.a.iter().map(|s| &**s).collect();
         let failure = Mutex::new(None);
         let mut digits = vec![0u64; window];
-        if report {
-            crate::progress::METER.add_units(windows as u64, start as u64);
-        }
+        METER.add_units(windows as u64, start as u64);
         for w in start..windows {
             crate::interrupt::check()?;
             let first = w * window;
@@ -640,9 +631,7 @@ impl<'a> OutOfCore<'a> {
                 j.append(&r)?;
                 self.new.lock().unwrap().push(r);
             }
-            if report {
-                crate::progress::METER.advance(1);
-            }
+            METER.advance(1);
         }
         let top = carry::carry_limbs(carry, self.plan.radix);
         self.s.write(count, &top)?;

@@ -4,7 +4,7 @@
 
 mod common;
 
-use common::{assert_product, Rng};
+use common::{assert_product, journal_step, Rng};
 use std::path::Path;
 use vastmul::engine::{execute_to, Product};
 use vastmul::plan::{plan, Algorithm, Force, Request};
@@ -247,18 +247,6 @@ fn a_disk_too_small_is_refused_before_any_work() {
         "nothing left on the tiny disk"
     );
     assert!(!err.contains("panicked"));
-}
-
-/// The last journal record's step in the state directory under `dir`.
-fn journal_step(dir: &Path) -> Option<u16> {
-    let state = std::fs::read_dir(dir).ok()?.flatten().find(|e| {
-        e.file_name()
-            .to_string_lossy()
-            .starts_with(".vastmul-state-")
-    })?;
-    let bytes = std::fs::read(state.path().join("journal")).ok()?;
-    let whole = bytes.len() / 80 * 80;
-    (whole > 0).then(|| u16::from_le_bytes([bytes[whole - 76], bytes[whole - 75]]))
 }
 
 #[test]

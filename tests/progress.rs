@@ -2,6 +2,9 @@
 //! (run through `script`, which gives the child a terminal of its own),
 //! timestamped lines when stderr is a pipe, and silence with `--quiet`.
 
+mod common;
+
+use common::journal_step;
 use std::path::Path;
 use std::process::{Command, Output};
 
@@ -224,19 +227,6 @@ fn quiet_silences_bars_lines_and_summary() {
         .unwrap();
     assert_eq!(o.status.code(), Some(4));
     assert!(String::from_utf8_lossy(&o.stderr).contains("c.txt"));
-}
-
-/// The last journal record's step in the run's state directory in `dir`
-/// (records are 80 bytes; the step is the little-endian u16 at byte 4).
-fn journal_step(dir: &Path) -> Option<u16> {
-    let state = std::fs::read_dir(dir).ok()?.flatten().find(|e| {
-        e.file_name()
-            .to_string_lossy()
-            .starts_with(".vastmul-state-")
-    })?;
-    let bytes = std::fs::read(state.path().join("journal")).ok()?;
-    let whole = bytes.len() / 80 * 80;
-    (whole > 0).then(|| u16::from_le_bytes([bytes[whole - 76], bytes[whole - 75]]))
 }
 
 /// The overall percentage of a status line (`...; overall 41.5%, ...`).

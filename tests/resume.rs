@@ -39,22 +39,9 @@ fn operands(dir: &Path, la: usize, lb: usize, seed: u64) -> (Vec<u64>, Vec<u64>)
 /// `mul a.txt b.txt -o out.txt --memory 16MiB` in `dir`.
 fn options(dir: &Path, out: &str) -> MulOptions {
     MulOptions {
-        a: dir.join("a.txt"),
-        b: dir.join("b.txt"),
-        output: dir.join(out),
-        in_format: None,
-        out_format: None,
-        force: false,
         threads: 2,
-        algorithm: Force::Auto,
         memory: Some(16 << 20),
-        scratch: None,
-        restart: false,
-        keep_state: false,
-        checkpoint: true,
-        self_check: true,
-        tamper: None,
-        faults: None,
+        ..MulOptions::new(dir.join("a.txt"), dir.join("b.txt"), dir.join(out))
     }
 }
 

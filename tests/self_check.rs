@@ -11,27 +11,13 @@ use common::Rng;
 use std::path::Path;
 use vastmul::format::{write_operand, Format};
 use vastmul::job::{multiply_files, MulOptions, Tamper};
-use vastmul::plan::Force;
 use vastmul::Radix;
 
 fn options(dir: &Path, memory: Option<u64>) -> MulOptions {
     MulOptions {
-        a: dir.join("a.txt"),
-        b: dir.join("b.txt"),
-        output: dir.join("c.txt"),
-        in_format: None,
-        out_format: None,
-        force: false,
         threads: 2,
-        algorithm: Force::Auto,
         memory,
-        scratch: None,
-        restart: false,
-        keep_state: false,
-        checkpoint: true,
-        self_check: true,
-        tamper: None,
-        faults: None,
+        ..MulOptions::new(dir.join("a.txt"), dir.join("b.txt"), dir.join("c.txt"))
     }
 }
 

@@ -527,3 +527,17 @@ pub fn assert_low_limbs(got: &[u64], a: &[u64], b: &[u64], radix: Radix, count: 
     g.resize(count, 0);
     assert_limbs_eq(&g, &expected, &format!("{what}: low {count} limbs"));
 }
+
+/// The step of the last whole journal record in the state directory of an
+/// out-of-core run whose scratch is `dir` (records are 80 bytes; the step is
+/// the little-endian u16 at byte 4), for tests that act at a given pass.
+pub fn journal_step(dir: &std::path::Path) -> Option<u16> {
+    let state = std::fs::read_dir(dir).ok()?.flatten().find(|e| {
+        e.file_name()
+            .to_string_lossy()
+            .starts_with(".vastmul-state-")
+    })?;
+    let bytes = std::fs::read(state.path().join("journal")).ok()?;
+    let whole = bytes.len() / 80 * 80;
+    (whole > 0).then(|| u16::from_le_bytes([bytes[whole - 76], bytes[whole - 75]]))
+}
