@@ -117,10 +117,11 @@ pub fn describe(r: &DemoReport) -> Vec<String> {
     )];
     out.push(match plan.algorithm {
         Algorithm::OutOfCore { shape, .. } => format!(
-            "  plan: out of core under a {} memory budget: a three-prime NTT of length {} \
+            "  plan: out of core under a {} memory budget: an NTT of length {} ({}) \
              ({} x {}), {} of scratch files, {} passes",
             show_size(plan.memory_budget),
             shape.len(),
+            plan.prime_set.describe(),
             shape.rows,
             shape.cols,
             show_size(plan.scratch_bytes),

@@ -6,6 +6,7 @@ use crate::fourstep::{BlockLog, FourStep, Metered, NoLog, Shape};
 use crate::ooc::OutOfCore;
 use crate::pieces;
 use crate::plan::{self, Algorithm, Force, Plan, Request};
+use crate::primeset::PrimeSet;
 use crate::radix::Radix;
 use crate::schoolbook;
 use crate::scratch::FileSpace;
@@ -149,7 +150,7 @@ fn trim(mut w: WordBuf) -> WordBuf {
     w
 }
 
-/// The transform passes of both NTT paths: all three primes' column
+/// The transform passes of both NTT paths: every prime's column
 /// transforms of `a` from one read of it; then prime by prime the column
 /// transform of `b` into `spare` (skipped for a square), the row pass with
 /// the pointwise product, and the inverse columns. Afterwards `stores_a`
@@ -159,7 +160,7 @@ pub(crate) fn transform_passes<S, A, B>(
     (la, lb, square): (usize, usize, bool),
     a: &A,
     b: &B,
-    stores_a: &[S; 3],
+    stores_a: &[S],
     spare: Option<&S>,
     timer: &mut Timer,
 ) -> Result<()>
@@ -170,8 +171,10 @@ where
 {
     let refs: Vec<&S> = stores_a.iter().collect();
     let log = timer.log();
-    timer.pass("columns of A, three primes", || {
-        fs.forward_columns(a, la, &[0, 1, 2], &refs, &[log, log, log])
+    let primes: Vec<usize> = (0..stores_a.len()).collect();
+    let logs = vec![log; stores_a.len()];
+    timer.pass(plan::columns_of_a_name(stores_a.len()), || {
+        fs.forward_columns(a, la, &primes, &refs, &logs)
     })?;
     let b_store = if square { None } else { spare };
     for (k, store) in stores_a.iter().enumerate() {
@@ -199,14 +202,10 @@ where
     B: LimbSource + ?Sized,
 {
     let (la, lb) = (plan.a_limbs, plan.b_limbs);
-    let fs = FourStep::new(shape);
+    let fs = FourStep::new(shape, plan.prime_set);
     let n = shape.len();
     let count = la + lb - 1;
-    let stores_a = [
-        RamStore::zeroed(n),
-        RamStore::zeroed(n),
-        RamStore::zeroed(n),
-    ];
+    let stores_a: Vec<RamStore> = (0..fs.prime_count()).map(|_| RamStore::zeroed(n)).collect();
     let spare = (!plan.square).then(|| RamStore::zeroed(n.max(plan.product_limbs)));
     // B is read once per prime: decode it once (text parsing is not free),
     // and let the column passes copy from the decoded limbs.
@@ -224,7 +223,9 @@ where
         spare.as_ref(),
         timer,
     )?;
-    let a_refs: Vec<&RamStore> = stores_a.iter().collect();
+    // The residues are only read from here on: plain slices, with no copy.
+    let residues: Vec<WordBuf> = stores_a.into_iter().map(RamStore::into_words).collect();
+    let views: Vec<&[u64]> = residues.iter().map(|w| &w[..]).collect();
     let mut out = match spare {
         Some(s) => s.into_words(),
         None => WordBuf::zeroed(plan.product_limbs),
@@ -239,8 +240,9 @@ where
         carry::propagate(
             count,
             |first, dst: &mut [U192]| {
-                let mut tmp = Default::default();
-                if let Err(e) = fs.coefficients(&a_refs, first, dst, &mut tmp) {
+                let here: Vec<&[u64]> =
+                    views.iter().map(|v| &v[first..first + dst.len()]).collect();
+                if let Err(e) = fs.combine(&here, first, dst) {
                     *failure.lock().unwrap() = Some(e);
                 }
                 if report {
@@ -360,9 +362,15 @@ pub fn multiply(a: &[u64], b: &[u64], radix: Radix) -> Vec<u64> {
 
 /// [`multiply`] with the algorithm forced (for tests and benchmarks).
 pub fn multiply_forced(a: &[u64], b: &[u64], radix: Radix, force: Force) -> Vec<u64> {
+    multiply_on(a, b, radix, force, PrimeSet::preferred())
+}
+
+/// [`multiply_forced`] on the given prime set and kernels (for tests and
+/// benchmarks that compare them; the set must be one this CPU runs).
+pub fn multiply_on(a: &[u64], b: &[u64], radix: Radix, force: Force, set: PrimeSet) -> Vec<u64> {
     let (a, b) = (trimmed(a), trimmed(b));
     debug_assert!(a.iter().chain(b).all(|&x| x <= radix.max_limb()));
-    let req = Request::in_memory(
+    let mut req = Request::in_memory(
         a.len(),
         b.len(),
         radix,
@@ -370,6 +378,7 @@ pub fn multiply_forced(a: &[u64], b: &[u64], radix: Radix, force: Force) -> Vec<
         rayon::current_num_threads(),
         force,
     );
+    req.primes = set;
     let plan = plan::plan(&req).expect("in-memory products of slices always plan");
     execute(&plan, a, b)
         .expect("RAM stores do not fail")

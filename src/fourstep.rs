@@ -16,18 +16,27 @@
 //!    and write over the first operand's row;
 //! 3. **inverse column pass**: inverse column transforms leave the residues
 //!    of the convolution in natural order; the carry pass then reads the
-//!    three residues of each coefficient side by side, and the CRT turns
-//!    them into its exact 192-bit value on the way.
+//!    residues of each coefficient side by side (three or four, one per
+//!    prime of the [`PrimeSet`]), and the CRT turns them into its exact
+//!    192-bit value on the way.
 //!
 //! Each pass is parallel over blocks with rayon; blocks are independent.
 //! The passes work one prime at a time, so the second operand needs one
-//! store, reused for every prime, not three.
+//! store, reused for every prime, not one per prime.
+//!
+//! The passes are the same for both prime sets; only the per-prime
+//! arithmetic differs ([`PrimeArith`]): the 62-bit scalar kernels with
+//! Montgomery twiddles, or one of the 50-bit kernel paths.
 
 use crate::arith::primes::{NttPrime, PRIMES};
 use crate::arith::Modulus;
 use crate::carry::U192;
 use crate::crt::Crt;
 use crate::ntt::{self, bit_reverse, Twiddles};
+use crate::ntt50::crt::Crt50;
+use crate::ntt50::primes::Prime50;
+use crate::ntt50::{self as n50, Kernel, Modulus50};
+use crate::primeset::PrimeSet;
 use crate::storage::{LimbSource, Store};
 use crate::{Error, Result};
 use rayon::prelude::*;
@@ -125,8 +134,8 @@ fn digest(log: &dyn BlockLog, words: &[u64]) -> Option<blake3::Hash> {
         .then(|| blake3::hash(crate::storage::words_as_bytes(words)))
 }
 
-/// Tables of one prime for one shape.
-struct PrimeTables {
+/// Tables of one prime below 2^62 for one shape.
+struct WideTables {
     modulus: Modulus,
     col: Twiddles,
     row: Twiddles,
@@ -137,7 +146,7 @@ struct PrimeTables {
     row_step_inv: Vec<u64>,
 }
 
-impl PrimeTables {
+impl WideTables {
     fn new(prime: &NttPrime, shape: Shape) -> Self {
         let m = prime.modulus;
         let n = shape.len() as u64;
@@ -156,7 +165,7 @@ impl PrimeTables {
             x = m.mont_mul(x, w_m);
             xi = m.mont_mul(xi, wi_m);
         }
-        PrimeTables {
+        WideTables {
             modulus: m,
             col: Twiddles::new(prime, shape.rows),
             row: Twiddles::new(prime, shape.cols),
@@ -166,11 +175,140 @@ impl PrimeTables {
     }
 }
 
+/// Tables of one prime below 2^50 for one shape, with the kernel path.
+struct NarrowTables {
+    kernel: Kernel,
+    modulus: Modulus50,
+    col: n50::Twiddles,
+    row: n50::Twiddles,
+    /// `w_N^(k1)` for the row at position `i` (`k1 = bitrev(i)`).
+    row_step_fwd: Vec<u64>,
+    /// `w_N^(-k1)` likewise.
+    row_step_inv: Vec<u64>,
+}
+
+impl NarrowTables {
+    fn new(prime: &Prime50, shape: Shape, kernel: Kernel) -> Self {
+        let m = prime.modulus;
+        // The generator's root, as the rows' radix-3 step assumes.
+        let w = prime.root_of_unity_any(shape.len() as u64);
+        let wi = m.inv(w);
+        let bits = shape.rows.trailing_zeros();
+        let (mut fwd, mut inv) = (vec![0; shape.rows], vec![0; shape.rows]);
+        let (mut x, mut xi) = (1u64, 1u64);
+        for k1 in 0..shape.rows {
+            let i = bit_reverse(k1, bits);
+            fwd[i] = x;
+            inv[i] = xi;
+            x = m.mul(x, w);
+            xi = m.mul(xi, wi);
+        }
+        NarrowTables {
+            kernel,
+            modulus: m,
+            col: n50::Twiddles::new(prime, shape.rows),
+            row: n50::Twiddles::new(prime, shape.cols),
+            row_step_fwd: fwd,
+            row_step_inv: inv,
+        }
+    }
+}
+
+/// The arithmetic of one prime in the passes: what a column block or a
+/// row needs done, whichever prime set it belongs to.
+enum PrimeArith {
+    Wide(Box<WideTables>),
+    Narrow(Box<NarrowTables>),
+}
+
+impl PrimeArith {
+    /// `buf = raw` reduced for a forward transform (`[0, 2p)`).
+    fn reduce_into(&self, raw: &[u64], buf: &mut [u64]) {
+        match self {
+            PrimeArith::Wide(t) => {
+                for (b, r) in buf.iter_mut().zip(raw) {
+                    *b = t.modulus.reduce_lazy(*r);
+                }
+            }
+            PrimeArith::Narrow(t) => {
+                buf.copy_from_slice(raw);
+                t.kernel.reduce_words(buf, &t.modulus);
+            }
+        }
+    }
+
+    /// Forward column transforms of a block of `lanes` columns.
+    fn forward_columns(&self, buf: &mut [u64], lanes: usize) {
+        match self {
+            PrimeArith::Wide(t) => ntt::forward_lanes(buf, lanes, &t.col, &t.modulus),
+            PrimeArith::Narrow(t) => t.kernel.forward_lanes(buf, lanes, &t.col),
+        }
+    }
+
+    /// Inverse column transforms of a block of `lanes` columns.
+    fn inverse_columns(&self, buf: &mut [u64], lanes: usize) {
+        match self {
+            PrimeArith::Wide(t) => ntt::inverse_lanes(buf, lanes, &t.col, &t.modulus),
+            PrimeArith::Narrow(t) => t.kernel.inverse_lanes(buf, lanes, &t.col),
+        }
+    }
+
+    /// The row step for row `i`: twiddle and transform `buf.a` (and
+    /// `buf.b` when `with_b`, else square `buf.a`), multiply pointwise,
+    /// inverse-transform and twiddle back, leaving the result in `buf.a`.
+    fn row_product(&self, i: usize, buf: &mut RowBuffers, with_b: bool) {
+        match self {
+            PrimeArith::Wide(t) => {
+                let m = &t.modulus;
+                powers_mont(&mut buf.tw, t.row_step_fwd[i], m);
+                twiddle(&mut buf.a, &buf.tw, m);
+                ntt::forward(&mut buf.a, &t.row, m);
+                if with_b {
+                    twiddle(&mut buf.b, &buf.tw, m);
+                    ntt::forward(&mut buf.b, &t.row, m);
+                    for (x, y) in buf.a.iter_mut().zip(&buf.b) {
+                        *x = m.mont_mul(m.reduce_2p(*x), *y);
+                    }
+                } else {
+                    for x in buf.a.iter_mut() {
+                        *x = m.mont_mul(m.reduce_2p(*x), *x);
+                    }
+                }
+                ntt::inverse(&mut buf.a, &t.row, m);
+                powers_mont(&mut buf.tw, t.row_step_inv[i], m);
+                twiddle(&mut buf.a, &buf.tw, m);
+            }
+            PrimeArith::Narrow(t) => {
+                let (k, m) = (t.kernel, &t.modulus);
+                k.twiddle_powers(&mut buf.a, t.row_step_fwd[i], m);
+                k.forward(&mut buf.a, &t.row);
+                if with_b {
+                    k.twiddle_powers(&mut buf.b, t.row_step_fwd[i], m);
+                    k.forward(&mut buf.b, &t.row);
+                } else {
+                    buf.b.copy_from_slice(&buf.a);
+                }
+                // The CRT divides out the transform length.
+                k.pointwise(&mut buf.a, &buf.b, 1, m);
+                k.inverse(&mut buf.a, &t.row);
+                k.twiddle_powers(&mut buf.a, t.row_step_inv[i], m);
+            }
+        }
+    }
+}
+
+/// The CRT of one prime set, with the scale the transforms leave folded in.
+enum Combiner {
+    Wide(Crt),
+    Narrow(Box<Crt50>, Kernel),
+}
+
 /// A prepared four-step convolution of one shape.
 pub struct FourStep {
     shape: Shape,
-    tables: Vec<PrimeTables>,
-    crt: Crt,
+    set: PrimeSet,
+    tables: Vec<PrimeArith>,
+    crt: Combiner,
 }
 
 /// Fills `out` with `w^j` (Montgomery form) for `j = 0, 1, ...`, using eight
@@ -224,26 +362,59 @@ struct RowBuffers {
 }
 
 impl FourStep {
-    /// Prepares tables for `shape` (`rows` a power of two, `cols` one or
-    /// three times one, `lanes` dividing `cols`).
-    pub fn new(shape: Shape) -> Self {
-        assert!(shape.rows.is_power_of_two() && crate::ntt::supported_len(shape.cols));
+    /// Prepares tables for `shape` (`rows` a power of two, `cols` a length
+    /// the set's kernels take, `lanes` dividing `cols`) with the primes and
+    /// kernels of `set`.
+    pub fn new(shape: Shape, set: PrimeSet) -> Self {
+        assert!(shape.rows.is_power_of_two() && set.supports_len(shape.cols));
+        assert!(set.supports_len(shape.len()));
         assert!(shape.lanes >= 1 && shape.cols.is_multiple_of(shape.lanes));
-        let tables: Vec<PrimeTables> = PRIMES.iter().map(|p| PrimeTables::new(p, shape)).collect();
-        // The inverse leaves N * c * 2^-64 (the pointwise Montgomery product
-        // drops one 2^64); the CRT divides that scale out.
-        let scale: Vec<u64> = tables
-            .iter()
-            .map(|t| {
-                let m = t.modulus;
-                m.mul(shape.len() as u64 % m.p, m.inv(m.mont_one))
-            })
-            .collect();
-        FourStep {
-            shape,
-            tables,
-            crt: Crt::new([scale[0], scale[1], scale[2]]),
+        let n = shape.len() as u64;
+        match set {
+            PrimeSet::Three62 => {
+                let tables: Vec<WideTables> =
+                    PRIMES.iter().map(|p| WideTables::new(p, shape)).collect();
+                // The inverse leaves N * c * 2^-64 (the pointwise Montgomery
+                // product drops one 2^64); the CRT divides that scale out.
+                let scale: Vec<u64> = tables
+                    .iter()
+                    .map(|t| {
+                        let m = t.modulus;
+                        m.mul(n % m.p, m.inv(m.mont_one))
+                    })
+                    .collect();
+                FourStep {
+                    shape,
+                    set,
+                    tables: tables
+                        .into_iter()
+                        .map(|t| PrimeArith::Wide(Box::new(t)))
+                        .collect(),
+                    crt: Combiner::Wide(Crt::new([scale[0], scale[1], scale[2]])),
+                }
+            }
+            PrimeSet::Four50(kernel) => FourStep {
+                shape,
+                set,
+                tables: n50::primes::PRIMES
+                    .iter()
+                    .map(|p| PrimeArith::Narrow(Box::new(NarrowTables::new(p, shape, kernel))))
+                    .collect(),
+                // The pointwise product keeps the scale at 1, so the inverse
+                // leaves N * c.
+                crt: Combiner::Narrow(Box::new(Crt50::for_transform_len(n)), kernel),
+            },
         }
+    }
+
+    /// The primes and kernels this convolution uses.
+    pub fn prime_set(&self) -> PrimeSet {
+        self.set
+    }
+
+    /// How many primes (residue stores) the passes use.
+    pub fn prime_count(&self) -> usize {
+        self.tables.len()
     }
 
     /// The shape this convolution was prepared for.
@@ -298,10 +469,8 @@ impl FourStep {
                         continue;
                     }
                     let t = &self.tables[k];
-                    for (b, r) in buf.iter_mut().zip(raw.iter()) {
-                        *b = t.modulus.reduce_lazy(*r);
-                    }
-                    ntt::forward_lanes(buf, lanes, &t.col, &t.modulus);
+                    t.reduce_into(raw, buf);
+                    t.forward_columns(buf, lanes);
                     for (n1, seg) in buf.chunks_exact(lanes).enumerate() {
                         store.write(cols * n1 + c0, seg)?;
                     }
@@ -328,7 +497,6 @@ impl FourStep {
     ) -> Result<()> {
         let Shape { rows, cols, .. } = self.shape;
         let t = &self.tables[k];
-        let m = &t.modulus;
         announce(&[log], rows);
         (0..rows).into_par_iter().try_for_each_init(
             || RowBuffers {
@@ -350,27 +518,10 @@ impl FourStep {
                     }
                 }
                 a.read(start, &mut buf.a)?;
-                powers_mont(&mut buf.tw, t.row_step_fwd[i], m);
-                twiddle(&mut buf.a, &buf.tw, m);
-                ntt::forward(&mut buf.a, &t.row, m);
-                match b {
-                    Some(b) => {
-                        b.read(start, &mut buf.b)?;
-                        twiddle(&mut buf.b, &buf.tw, m);
-                        ntt::forward(&mut buf.b, &t.row, m);
-                        for (x, y) in buf.a.iter_mut().zip(&buf.b) {
-                            *x = m.mont_mul(m.reduce_2p(*x), *y);
-                        }
-                    }
-                    None => {
-                        for x in buf.a.iter_mut() {
-                            *x = m.mont_mul(m.reduce_2p(*x), *x);
-                        }
-                    }
+                if let Some(b) = b {
+                    b.read(start, &mut buf.b)?;
                 }
-                ntt::inverse(&mut buf.a, &t.row, m);
-                powers_mont(&mut buf.tw, t.row_step_inv[i], m);
-                twiddle(&mut buf.a, &buf.tw, m);
+                t.row_product(i, buf, b.is_some());
                 out.write(start, &buf.a)?;
                 log.finished(i, digest(log, &buf.a))
             },
@@ -407,7 +558,7 @@ impl FourStep {
                 for (n1, seg) in buf.chunks_exact_mut(lanes).enumerate() {
                     store.read(cols * n1 + c0, seg)?;
                 }
-                ntt::inverse_lanes(buf, lanes, &t.col, &t.modulus);
+                t.inverse_columns(buf, lanes);
                 for (n1, seg) in buf.chunks_exact(lanes).enumerate() {
                     dst.write(cols * n1 + c0, seg)?;
                 }
@@ -445,20 +596,50 @@ impl FourStep {
     }
 
     /// The exact coefficients `first..first + out.len()` from the residue
-    /// stores left by [`FourStep::inverse_columns`] for every prime.
+    /// stores left by [`FourStep::inverse_columns`] for every prime (one
+    /// store per prime, in order); `tmp` is the caller's reusable buffer.
     pub fn coefficients<S: Store + ?Sized>(
         &self,
         stores: &[&S],
         first: usize,
         out: &mut [U192],
-        tmp: &mut [Vec<u64>; 3],
+        tmp: &mut Vec<Vec<u64>>,
     ) -> Result<()> {
+        tmp.resize(stores.len(), Vec::new());
         for (store, t) in stores.iter().zip(tmp.iter_mut()) {
             t.resize(out.len(), 0);
             store.read(first, t)?;
         }
-        for (i, o) in out.iter_mut().enumerate() {
-            *o = self.crt.combine([tmp[0][i], tmp[1][i], tmp[2][i]]);
+        let views: Vec<&[u64]> = tmp.iter().map(|t| &t[..]).collect();
+        self.combine(&views, first, out)
+    }
+
+    /// The exact coefficients from residue slices in RAM (one per prime,
+    /// each `out.len()` long; `first` only names the position in errors).
+    pub fn combine(&self, residues: &[&[u64]], first: usize, out: &mut [U192]) -> Result<()> {
+        let tmp = residues;
+        match &self.crt {
+            Combiner::Wide(crt) => {
+                for (i, o) in out.iter_mut().enumerate() {
+                    *o = crt.combine([tmp[0][i], tmp[1][i], tmp[2][i]]);
+                }
+            }
+            Combiner::Narrow(crt, kernel) => {
+                // Residues of a product are below 2^52 and combine to less
+                // than 2^192; corrupted ones need not, and must be caught.
+                let r = [tmp[0], tmp[1], tmp[2], tmp[3]];
+                if !crt.coefficients_checked(*kernel, r, out) {
+                    return Err(Error::verify(
+                        format!(
+                            "transform consistency: a residue among coefficients {first}..{} \
+                             is out of range; memory or scratch data was corrupted",
+                            first + out.len()
+                        ),
+                        "rerun (with --restart for an out-of-core run); if it fails again, \
+                         suspect the machine's memory or disk, and please report it",
+                    ));
+                }
+            }
         }
         Ok(())
     }
@@ -485,7 +666,7 @@ impl FourStep {
         len: usize,
     ) -> Result<()> {
         let mut out = vec![[0u64; 3]; len];
-        let mut tmp: [Vec<u64>; 3] = Default::default();
+        let mut tmp = Vec::new();
         self.coefficients(stores, first, &mut out, &mut tmp)?;
         match out.iter().position(|v| *v != [0, 0, 0]) {
             None => Ok(()),

@@ -232,10 +232,19 @@ impl Operands {
         self.b.as_ref().unwrap_or(&self.a)
     }
 
-    fn request(&self, threads: usize, force: Force, memory: u64) -> Request {
+    fn request(&self, threads: usize, force: Force, memory: u64) -> Result<Request> {
         let (a, b) = (&self.a, self.b());
         let input_bytes = a.file_len() + self.b.as_ref().map_or(0, |b| b.file_len());
-        Request {
+        let primes = crate::primeset::PrimeSet::from_env().map_err(|e| {
+            Error::usage(
+                e.to_string(),
+                format!(
+                    "unset {} to let vastmul pick the fastest kernels this CPU has",
+                    crate::primeset::KERNEL_ENV
+                ),
+            )
+        })?;
+        Ok(Request {
             a_limbs: a.limb_count(),
             b_limbs: b.limb_count(),
             radix: a.radix(),
@@ -244,7 +253,8 @@ impl Operands {
             force,
             memory,
             input_bytes,
-        }
+            primes,
+        })
     }
 }
 
@@ -258,7 +268,7 @@ pub fn plan_files(
     memory: Option<u64>,
 ) -> Result<Plan> {
     let ops = Operands::open(a, b, format)?;
-    plan::plan(&ops.request(threads, Force::Auto, memory.unwrap_or_else(default_budget)))
+    plan::plan(&ops.request(threads, Force::Auto, memory.unwrap_or_else(default_budget))?)
 }
 
 /// The directory an output file goes to.
@@ -435,9 +445,10 @@ fn open_state(
                     )));
                 }
             }
-            if old.plan != manifest.plan {
+            if !same_plan_up_to_kernel(&old.plan, &manifest.plan) {
                 return Err(refuse(
-                    "saved state follows a different plan (other --memory, --threads or operands)"
+                    "saved state follows a different plan (other --memory, --threads, operands \
+                     or VASTMUL_KERNEL)"
                         .into(),
                 ));
             }
@@ -464,6 +475,23 @@ fn open_state(
         notes,
         identify_seconds,
     })
+}
+
+/// True when a saved plan is the new one, or differs only in the kernel
+/// path of the same primes: every path leaves the same residues modulo
+/// each prime (its lazy representatives may differ, but each block is
+/// checked against the hash of what was written), so a run may resume on a
+/// CPU with other vector units.
+fn same_plan_up_to_kernel(old: &Plan, new: &Plan) -> bool {
+    use crate::primeset::PrimeSet;
+    match (old.prime_set, new.prime_set) {
+        (PrimeSet::Four50(_), PrimeSet::Four50(_)) => {
+            let mut o = old.clone();
+            o.prime_set = new.prime_set;
+            o == *new
+        }
+        _ => old == new,
+    }
 }
 
 /// An error of a checkpointed run, completed with what was kept.
@@ -527,7 +555,7 @@ pub fn multiply_files(opts: &MulOptions) -> Result<MulReport> {
     }
     let mut out = AtomicOutput::create(&opts.output, opts.force)?;
     let memory = opts.memory.unwrap_or_else(default_budget);
-    let plan = plan::plan(&ops.request(opts.threads, opts.algorithm, memory))?;
+    let plan = plan::plan(&ops.request(opts.threads, opts.algorithm, memory)?)?;
     METER.start(&plan);
     // Room for the product beside its target, checked before any work.
     let product_bytes = match out_format {

@@ -46,6 +46,7 @@ pub mod ntt;
 pub mod ntt50;
 pub mod pieces;
 pub mod plan;
+pub mod primeset;
 pub mod schoolbook;
 pub mod storage;
 #[cfg(test)]

@@ -7,11 +7,11 @@
 //!
 //! | step | reads | writes |
 //! |---|---|---|
-//! | columns of A (one part per prime) | operand A | `a0`, `a1`, `a2` |
+//! | columns of A (one part per prime) | operand A | `a0`, `a1`, ... (one per prime) |
 //! | columns of B, prime k | operand B | `s` |
 //! | rows and pointwise product, prime k | `ak`, `s` | `p` |
 //! | inverse columns, prime k | `p` | `ak` |
-//! | CRT and carry, window by window | `a0`, `a1`, `a2` | `s` (the limbs) |
+//! | CRT and carry, window by window | `a0`, `a1`, ... | `s` (the limbs) |
 //!
 //! The primes are done one after another (a "chain" per prime), so `s` and
 //! `p` are reused. On resume every block the remaining work still reads is
@@ -46,8 +46,14 @@ pub mod step {
     pub const fn inverse(k: usize) -> u16 {
         3 + 3 * k as u16
     }
-    /// CRT and carry windows.
-    pub const CARRY: u16 = 10;
+    /// CRT and carry windows: above the steps of any prime set's primes.
+    pub const CARRY: u16 = 100;
+
+    /// True for the row steps, whose blocks are rows rather than column
+    /// blocks.
+    pub const fn is_rows(step: u16) -> bool {
+        step != CARRY && step != COLUMNS_A && step % 3 == 2
+    }
 }
 
 /// How often the scratch stores and the journal are made durable (fsync).
@@ -132,7 +138,8 @@ pub struct OutOfCore<'a> {
     done: Done,
     new: Mutex<Vec<Record>>,
     last_sync: Mutex<std::time::Instant>,
-    a: [Box<dyn Store>; 3],
+    /// A residue store per prime.
+    a: Vec<Box<dyn Store>>,
     s: Box<dyn Store>,
     p: Box<dyn Store>,
 }
@@ -164,7 +171,9 @@ impl<'a> OutOfCore<'a> {
             reused &= was;
             Ok(s)
         };
-        let a = [open("a0", n)?, open("a1", n)?, open("a2", n)?];
+        let a = (0..plan.prime_set.count())
+            .map(|k| open(&format!("a{k}"), n))
+            .collect::<Result<Vec<_>>>()?;
         let s = open("s", n.max(plan.product_limbs))?;
         let p = open("p", n)?;
         let mut done: Done = HashMap::new();
@@ -175,7 +184,7 @@ impl<'a> OutOfCore<'a> {
         }
         let mut run = OutOfCore {
             plan,
-            fs: FourStep::new(shape),
+            fs: FourStep::new(shape, plan.prime_set),
             window,
             journal,
             done,
@@ -213,11 +222,16 @@ impl<'a> OutOfCore<'a> {
     fn blocks_of(&self, step: u16) -> usize {
         if step == step::CARRY {
             self.coefficient_count().div_ceil(self.window)
-        } else if (step as usize) % 3 == 2 {
+        } else if step::is_rows(step) {
             self.fs.shape().rows
         } else {
             self.fs.column_blocks()
         }
+    }
+
+    /// How many primes (chains) the run has.
+    fn primes(&self) -> usize {
+        self.a.len()
     }
 
     fn coefficient_count(&self) -> usize {
@@ -267,7 +281,7 @@ impl<'a> OutOfCore<'a> {
                 let mut v = vec![0u64; w];
                 st.read(first, &mut v)?;
                 blake3::hash(words_as_bytes(&v))
-            } else if (step as usize) % 3 == 2 && step != step::COLUMNS_A {
+            } else if step::is_rows(step) {
                 self.fs.row_hash(st, b as usize)?
             } else {
                 self.fs.column_block_hash(st, b as usize)?
@@ -290,7 +304,7 @@ impl<'a> OutOfCore<'a> {
         let note = |out: &mut Resumed, what: String| out.problems.push(what);
         if !carry_complete {
             // The residues of finished chains feed the carry pass.
-            for k in 0..3 {
+            for k in 0..self.primes() {
                 if self.chain_done(k) {
                     let bad = self.verify_step(step::inverse(k), 0, StoreRef::A(k))?;
                     if bad > 0 {
@@ -298,7 +312,7 @@ impl<'a> OutOfCore<'a> {
                         self.restart_chain(k);
                         self.drop_step(step::CARRY, 0);
                         // `s` and `p` will be overwritten by that chain.
-                        for j in 0..3 {
+                        for j in 0..self.primes() {
                             if !self.chain_done(j) && j != k {
                                 if self.count(step::inverse(j), 0) > 0 {
                                     self.restart_chain(j);
@@ -312,7 +326,7 @@ impl<'a> OutOfCore<'a> {
                 }
             }
             // The chain in progress, if any.
-            if let Some(k) = (0..3).find(|&k| !self.chain_done(k)) {
+            if let Some(k) = (0..self.primes()).find(|&k| !self.chain_done(k)) {
                 let (b, r, i) = (step::columns_b(k), step::rows(k), step::inverse(k));
                 if self.count(i, 0) > 0 {
                     let bad = self.verify_step(i, 0, StoreRef::A(k))?;
@@ -345,7 +359,7 @@ impl<'a> OutOfCore<'a> {
                     }
                 }
                 // Later chains have only their columns of A so far.
-                for j in k + 1..3 {
+                for j in k + 1..self.primes() {
                     let bad = self.verify_step(step::COLUMNS_A, j as u16, StoreRef::A(j))?;
                     if bad > 0 {
                         note(out, format!("{bad} column block(s) of A for prime {j} did not match; they are redone"));
@@ -389,16 +403,16 @@ impl<'a> OutOfCore<'a> {
                 n = self.plan.passes.len()
             );
         }
-        for k in 0..3 {
+        for k in 0..self.primes() {
             if !self.complete(step::COLUMNS_A, k as u16) && !self.chain_done(k) {
                 return name_count(
-                    "columns of A, three primes".into(),
+                    crate::plan::columns_of_a_name(self.primes()),
                     step::COLUMNS_A,
                     k as u16,
                 );
             }
         }
-        for k in 0..3 {
+        for k in 0..self.primes() {
             if self.chain_done(k) {
                 continue;
             }
@@ -518,7 +532,7 @@ impl<'a> OutOfCore<'a> {
         B: LimbSource + ?Sized,
     {
         // Columns of A for every prime whose chain needs them, in one read.
-        let parts: Vec<usize> = (0..3)
+        let parts: Vec<usize> = (0..self.primes())
             .filter(|&k| !self.chain_done(k) && !self.complete(step::COLUMNS_A, k as u16))
             .collect();
         if !parts.is_empty() {
@@ -528,14 +542,14 @@ impl<'a> OutOfCore<'a> {
                 .collect();
             let log_refs: Vec<&dyn BlockLog> = logs.iter().map(|l| l as &dyn BlockLog).collect();
             let stores: Vec<&dyn Store> = parts.iter().map(|&k| &*self.a[k]).collect();
-            timer.pass("columns of A, three primes", || {
+            timer.pass(crate::plan::columns_of_a_name(self.primes()), || {
                 self.fs.forward_columns(a, la, &parts, &stores, &log_refs)?;
                 self.checkpoint(false)
             })?;
             drop(logs);
             self.absorb();
         }
-        for k in 0..3 {
+        for k in 0..self.primes() {
             if self.chain_done(k) {
                 continue;
             }

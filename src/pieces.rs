@@ -11,7 +11,7 @@
 
 use crate::carry::{self, U192};
 use crate::engine::{read_all, read_into, scratch_path, transform_passes, Product, Timer};
-use crate::fourstep::{FourStep, Shape};
+use crate::fourstep::FourStep;
 use crate::plan::{Algorithm, Plan};
 use crate::radix::Radix;
 use crate::schoolbook;
@@ -44,22 +44,18 @@ impl Sink {
 struct Worker {
     limbs: Vec<u64>,
     product: Vec<u64>,
-    stores: Option<([RamStore; 3], RamStore)>,
+    stores: Option<(Vec<RamStore>, RamStore)>,
 }
 
 impl Worker {
-    fn new(piece: usize, short: usize, shape: Option<Shape>) -> Self {
+    fn new(piece: usize, short: usize, fs: Option<&FourStep>) -> Self {
         Worker {
             limbs: vec![0; piece],
             product: vec![0; piece + short],
-            stores: shape.map(|s| {
-                let n = s.len();
+            stores: fs.map(|fs| {
+                let n = fs.shape().len();
                 (
-                    [
-                        RamStore::zeroed(n),
-                        RamStore::zeroed(n),
-                        RamStore::zeroed(n),
-                    ],
+                    (0..fs.prime_count()).map(|_| RamStore::zeroed(n)).collect(),
                     RamStore::zeroed(n),
                 )
             }),
@@ -171,13 +167,15 @@ where
     );
     let total = ll + ls;
     let short = read_all(short, ls);
-    let fs = shape.map(FourStep::new);
+    let fs = shape.map(|s| FourStep::new(s, plan.prime_set));
     let mut sink = if product_on_disk {
         Sink::Disk(FileStore::create(&scratch_path(dir, "product"), total)?)
     } else {
         Sink::Ram(WordBuf::zeroed(total))
     };
-    let mut workers: Vec<Worker> = (0..batch).map(|_| Worker::new(piece, ls, shape)).collect();
+    let mut workers: Vec<Worker> = (0..batch)
+        .map(|_| Worker::new(piece, ls, fs.as_ref()))
+        .collect();
     let mut overlap = vec![0u64; ls];
     let mut next = 0;
     crate::progress::METER.add_units(count as u64, 0);

@@ -3,8 +3,8 @@
 //! The plan is a value: it is printed, compared in tests and (later) stored
 //! with a run's state. The executor only takes a `&Plan`.
 
-use crate::arith::primes::{coefficient_bound_holds, MAX_TRANSFORM_LEN, PRIMES, PRIME_COUNT};
 use crate::fourstep::Shape;
+use crate::primeset::PrimeSet;
 use crate::radix::Radix;
 use crate::{Error, Result};
 use serde::{Deserialize, Serialize};
@@ -43,12 +43,12 @@ pub enum Algorithm {
     Zero,
     /// Quadratic convolution, for a short operand.
     Schoolbook,
-    /// Three-prime four-step NTT in RAM.
+    /// Four-step NTT in RAM, over the plan's prime set.
     Ntt {
         /// The transform's shape.
         shape: Shape,
     },
-    /// Three-prime four-step NTT over scratch files, under the memory
+    /// Four-step NTT over scratch files, under the memory
     /// budget: column blocks of `shape.lanes` columns and single rows in
     /// RAM, the carry and output passes in windows of `window` limbs.
     OutOfCore {
@@ -118,6 +118,8 @@ pub struct Request {
     pub memory: u64,
     /// Bytes of the input files, which are memory-mapped while read.
     pub input_bytes: u64,
+    /// The primes and kernels of the transforms.
+    pub primes: PrimeSet,
 }
 
 impl Request {
@@ -139,6 +141,7 @@ impl Request {
             force,
             memory: u64::MAX,
             input_bytes: 0,
+            primes: PrimeSet::preferred(),
         }
     }
 }
@@ -162,6 +165,9 @@ pub struct Plan {
     pub algorithm: Algorithm,
     /// The NTT primes (when the NTT is used).
     pub primes: Vec<u64>,
+    /// The prime set and kernels of the transforms (when the NTT is used).
+    #[serde(default)]
+    pub prime_set: PrimeSet,
     /// Peak RAM the plan needs, in bytes, mapped input pages included.
     pub ram_bytes: u64,
     /// The memory budget the plan was made for (`u64::MAX`: none).
@@ -181,14 +187,17 @@ pub struct Plan {
 /// points (up to a quarter fewer: a product just above a power of two no
 /// longer pays for nearly twice its length, in time and in scratch). The
 /// factor 3 goes to the rows' transforms (`cols`); `rows` stays a power of
-/// two near the square root.
-pub fn shape_for(min_len: usize) -> Shape {
+/// two near the square root. (Both prime sets' kernels take both kinds of
+/// length; the set is asked anyway, so that a set without radix-3 steps
+/// would get `2^k`.)
+pub fn shape_for(min_len: usize, set: PrimeSet) -> Shape {
     let pow2 = min_len.max(2).next_power_of_two();
-    let (odd, n) = if pow2 >= MIN_RADIX3_LEN && min_len <= pow2 / 4 * 3 {
-        (3, pow2 / 4 * 3)
-    } else {
-        (1, pow2)
-    };
+    let (odd, n) =
+        if pow2 >= MIN_RADIX3_LEN && min_len <= pow2 / 4 * 3 && set.supports_len(pow2 / 4 * 3) {
+            (3, pow2 / 4 * 3)
+        } else {
+            (1, pow2)
+        };
     let log = (n / odd).trailing_zeros();
     let rows_log = (log / 2).min(ROWS_LOG_MAX);
     let rows = 1usize << rows_log;
@@ -219,11 +228,21 @@ fn per_thread_ram(shape: Shape) -> u64 {
     8 * (2 * shape.rows * shape.lanes + 3 * shape.cols) as u64
 }
 
-/// RAM of the carry and output passes for a window of `window` limbs: three
-/// residue words and a 192-bit coefficient per limb in flight, the limbs
-/// themselves and their text.
-fn window_ram(window: usize) -> u64 {
-    (8 * 3 + 24 + 8 + TEXT_BYTES_PER_LIMB) * window as u64
+/// RAM of the carry and output passes for a window of `window` limbs: a
+/// residue word per prime and a 192-bit coefficient per limb in flight, the
+/// limbs themselves and their text.
+fn window_ram(window: usize, primes: PrimeSet) -> u64 {
+    (8 * primes.count() as u64 + 24 + 8 + TEXT_BYTES_PER_LIMB) * window as u64
+}
+
+/// The name of the column pass of A over `count` primes.
+pub fn columns_of_a_name(count: usize) -> String {
+    let word = match count {
+        3 => "three",
+        4 => "four",
+        _ => return format!("columns of A, {count} primes"),
+    };
+    format!("columns of A, {word} primes")
 }
 
 /// Plans a product.
@@ -245,6 +264,7 @@ pub fn plan(req: &Request) -> Result<Plan> {
         threads: req.threads,
         algorithm: Algorithm::Zero,
         primes: Vec::new(),
+        prime_set: req.primes,
         ram_bytes: FIXED_RAM + req.input_bytes,
         memory_budget: req.memory,
         scratch_bytes: 0,
@@ -257,7 +277,19 @@ pub fn plan(req: &Request) -> Result<Plan> {
     }
     let coefficients = la + lb - 1;
     let short = la.min(lb);
-    let shape = shape_for(coefficients);
+    // The four primes below 2^50 stop at 2^32 points; longer transforms
+    // take the three primes below 2^62 (up to 2^40).
+    let req = &Request {
+        primes: if shape_for(coefficients, req.primes).len() as u64 > req.primes.max_transform_len()
+        {
+            PrimeSet::Three62
+        } else {
+            req.primes
+        },
+        ..*req
+    };
+    plan.prime_set = req.primes;
+    let shape = shape_for(coefficients, req.primes);
     let ntt_cost = transform_cost(shape.len());
     let schoolbook_cost = SCHOOLBOOK_COST * la as f64 * lb as f64;
     let pieces = best_pieces(req);
@@ -287,23 +319,37 @@ pub fn plan(req: &Request) -> Result<Plan> {
     if let (Force::Pieces, Some((plan_pieces, _))) = (req.force, &pieces) {
         return Ok(plan_pieces.clone());
     }
-    if shape.len() as u64 > MAX_TRANSFORM_LEN {
+    let max_len = req.primes.max_transform_len();
+    if shape.len() as u64 > max_len {
         return Err(Error::Resources {
             what: format!(
-                "a product of {la} x {lb} limbs needs a transform of {} points; the limit is 2^40",
-                shape.len()
+                "a product of {la} x {lb} limbs needs a transform of {} points; the limit of \
+                 {} is 2^{}",
+                shape.len(),
+                req.primes.describe(),
+                max_len.trailing_zeros()
             ),
-            fix: "split the operands into pieces below 2^39 limbs".into(),
+            fix: format!(
+                "split the operands into pieces below 2^{} limbs{}",
+                max_len.trailing_zeros() - 1,
+                if req.primes == PrimeSet::Three62 {
+                    ""
+                } else {
+                    ", or run with VASTMUL_KERNEL=wide (longer transforms)"
+                }
+            ),
         });
     }
     // Exactness: every coefficient sums at most `short` limb products, and
-    // the CRT over the three primes is exact below their product.
-    assert!(coefficient_bound_holds(short as u64, req.radix.max_limb()));
-    plan.primes = PRIMES.iter().map(|p| p.modulus.p).collect();
+    // the CRT over the set's primes is exact below their product.
+    assert!(req.primes.exact_for(short as u64, req.radix));
+    plan.primes = req.primes.primes();
     let n_words = shape.len() as u64;
-    // Three stores for A, one reused for B and then for the product limbs.
+    // A store per prime for A, one reused for B and then for the product
+    // limbs.
     let spare_words = n_words.max(product_limbs as u64);
-    let store_bytes = 8 * (PRIME_COUNT as u64 * n_words + if req.square { 0 } else { spare_words });
+    let count = req.primes.count() as u64;
+    let store_bytes = 8 * (count * n_words + if req.square { 0 } else { spare_words });
     let product_store = if req.square { limb_bytes } else { 0 };
     let b_decoded = if req.square { 0 } else { 8 * lb as u64 };
     let threads = req.threads as u64;
@@ -353,12 +399,12 @@ fn best_pieces(req: &Request) -> Option<(Plan, f64)> {
     if req.square || short <= SCHOOLBOOK_ALWAYS {
         return None;
     }
-    let single = shape_for(long + short - 1).len();
+    let single = shape_for(long + short - 1, req.primes).len();
     let mut best: Option<(Plan, f64)> = None;
     // Each piece's transform holds at least twice the short operand, so a
     // piece is at least as long as the short operand.
     let mut t = (2 * short).next_power_of_two();
-    while t < single && t as u64 <= MAX_TRANSFORM_LEN {
+    while t < single && t as u64 <= req.primes.max_transform_len() {
         let piece = t - short + 1;
         let count = long.div_ceil(piece);
         let cost =
@@ -372,6 +418,7 @@ fn best_pieces(req: &Request) -> Option<(Plan, f64)> {
             threads: req.threads,
             algorithm: Algorithm::Zero,
             primes: Vec::new(),
+            prime_set: req.primes,
             ram_bytes: FIXED_RAM,
             memory_budget: req.memory,
             scratch_bytes: 0,
@@ -379,7 +426,7 @@ fn best_pieces(req: &Request) -> Option<(Plan, f64)> {
             release_inputs: false,
         };
         if count >= 2 && best.as_ref().is_none_or(|b| cost < b.1) {
-            if let Ok(p) = pieces_plan(req, base, piece, Some(shape_for(t))) {
+            if let Ok(p) = pieces_plan(req, base, piece, Some(shape_for(t, req.primes))) {
                 best = Some((p, cost));
             }
         }
@@ -402,11 +449,12 @@ fn pieces_plan(req: &Request, mut plan: Plan, piece: usize, shape: Option<Shape>
     };
     let words = |x: usize| 8 * x as u64;
     // Per piece in flight: its limbs, its product's limbs, and either the
-    // four transform stores or the schoolbook coefficients.
+    // transform stores (one per prime and a spare) or the schoolbook
+    // coefficients.
     let per_piece = words(piece)
         + words(piece + short)
         + match shape {
-            Some(s) => words(4 * s.len() + 1),
+            Some(s) => words((req.primes.count() + 1) * s.len() + 1),
             None => 3 * words(piece + short),
         };
     let per_thread = shape.map_or(0, per_thread_ram);
@@ -430,8 +478,8 @@ fn pieces_plan(req: &Request, mut plan: Plan, piece: usize, shape: Option<Shape>
         return Err(budget_too_small(req.memory, ram));
     }
     if shape.is_some() {
-        assert!(coefficient_bound_holds(short as u64, req.radix.max_limb()));
-        plan.primes = PRIMES.iter().map(|p| p.modulus.p).collect();
+        assert!(req.primes.exact_for(short as u64, req.radix));
+        plan.primes = req.primes.primes();
     }
     plan.algorithm = Algorithm::Pieces {
         piece,
@@ -491,12 +539,13 @@ pub fn pieces_pass_name(count: usize, piece: usize, short: usize) -> String {
 fn ntt_passes(req: &Request, shape: Shape) -> Vec<Pass> {
     let n8 = 8 * shape.len() as u64;
     let p8 = 8 * (req.a_limbs + req.b_limbs) as u64;
+    let count = req.primes.count();
     let mut passes = vec![Pass {
-        name: "columns of A, three primes".into(),
+        name: columns_of_a_name(count),
         read_bytes: req.input_bytes / if req.square { 1 } else { 2 },
-        write_bytes: 3 * n8,
+        write_bytes: count as u64 * n8,
     }];
-    for k in 0..PRIME_COUNT {
+    for k in 0..count {
         if !req.square {
             passes.push(Pass {
                 name: format!("columns of B, prime {k}"),
@@ -517,7 +566,7 @@ fn ntt_passes(req: &Request, shape: Shape) -> Vec<Pass> {
     }
     passes.push(Pass {
         name: "CRT and carry".into(),
-        read_bytes: 3 * 8 * (req.a_limbs + req.b_limbs - 1) as u64,
+        read_bytes: count as u64 * 8 * (req.a_limbs + req.b_limbs - 1) as u64,
         write_bytes: p8,
     });
     passes.push(Pass {
@@ -531,14 +580,14 @@ fn ntt_passes(req: &Request, shape: Shape) -> Vec<Pass> {
 /// Chooses column blocks, rows and windows that fit the budget, or refuses
 /// with the smallest budget that would do.
 fn plan_out_of_core(req: &Request, mut plan: Plan, coefficients: usize) -> Result<Plan> {
-    let mut shape = shape_for(coefficients);
+    let mut shape = shape_for(coefficients, req.primes);
     let threads = req.threads as u64;
     let product_limbs = req.a_limbs + req.b_limbs;
     // Carry and output windows start at up to a quarter of the budget, then
     // column blocks as wide as fit: wide blocks mean long sequential
     // segments on disk. Both shrink until the plan fits.
     let mut window = product_limbs.next_power_of_two().clamp(1 << 12, 1 << 20);
-    while window > 1 << 12 && window_ram(window) > req.memory / 4 {
+    while window > 1 << 12 && window_ram(window, req.primes) > req.memory / 4 {
         window /= 2;
     }
     // Input pages are released after each read, so only the segments in
@@ -548,7 +597,9 @@ fn plan_out_of_core(req: &Request, mut plan: Plan, coefficients: usize) -> Resul
         (shape.rows as u64 * (TEXT_BYTES_PER_LIMB * shape.lanes as u64 + 8192)).min(req.input_bytes)
     };
     let ram = |shape: Shape, window: usize| {
-        FIXED_RAM + window_ram(window) + threads * (per_thread_ram(shape) + input(shape))
+        FIXED_RAM
+            + window_ram(window, req.primes)
+            + threads * (per_thread_ram(shape) + input(shape))
     };
     loop {
         shape.lanes = shape.cols;
@@ -569,10 +620,10 @@ fn plan_out_of_core(req: &Request, mut plan: Plan, coefficients: usize) -> Resul
     plan.algorithm = Algorithm::OutOfCore { shape, window };
     plan.release_inputs = true;
     plan.ram_bytes = need;
-    // Three residue stores, one for B and then the product's limbs, and one
-    // for the row pass's output (so that no pass writes where it reads, and
-    // an interrupted block can always be redone).
-    plan.scratch_bytes = 8 * (PRIME_COUNT as u64 * n_words + spare_words + n_words);
+    // A residue store per prime, one for B and then the product's limbs,
+    // and one for the row pass's output (so that no pass writes where it
+    // reads, and an interrupted block can always be redone).
+    plan.scratch_bytes = 8 * (req.primes.count() as u64 * n_words + spare_words + n_words);
     plan.passes = ntt_passes(req, shape);
     Ok(plan)
 }
@@ -588,7 +639,7 @@ mod tests {
     #[test]
     fn shapes_cover_the_product_and_stay_balanced() {
         for min_len in [1usize, 2, 3, 1000, 1 << 20, (1 << 23) + 1, 1 << 30] {
-            let s = shape_for(min_len);
+            let s = shape_for(min_len, PrimeSet::Three62);
             assert!(s.len() >= min_len);
             assert!(s.len() < 2 * min_len.max(2));
             assert!(s.rows <= s.cols);
@@ -599,7 +650,7 @@ mod tests {
         // most 3/2 of the length needed, never 2x.
         for k in 10..=34u32 {
             for min_len in [(1usize << k) + 1, 3 << (k - 1), (3 << (k - 1)) + 1] {
-                let s = shape_for(min_len);
+                let s = shape_for(min_len, PrimeSet::Three62);
                 let n = s.len();
                 assert!(n >= min_len);
                 let best = if min_len <= 3 << (k - 1) {
@@ -611,6 +662,61 @@ mod tests {
                 assert!(s.rows <= s.cols && s.cols.is_multiple_of(s.lanes) && s.lanes == LANES);
             }
         }
+    }
+
+    /// The four-prime kernels take `3 * 2^k` rows too, so their shapes are
+    /// the three-prime ones; the plan records the set it was made for and
+    /// sizes its stores by that set's prime count.
+    #[test]
+    fn four_prime_plans_use_the_same_shapes_and_four_stores() {
+        let four = PrimeSet::Four50(crate::ntt50::Kernel::Scalar);
+        for min_len in [1usize, 1000, (1 << 20) + 1, 3 << 20, (1 << 23) + 1] {
+            assert_eq!(
+                shape_for(min_len, four),
+                shape_for(min_len, PrimeSet::Three62)
+            );
+        }
+        let mut r = req(1 << 20, 1 << 20);
+        r.primes = four;
+        let p4 = plan(&r).unwrap();
+        r.primes = PrimeSet::Three62;
+        let p3 = plan(&r).unwrap();
+        assert_eq!((p4.prime_set, p4.primes.len()), (four, 4));
+        assert_eq!((p3.prime_set, p3.primes.len()), (PrimeSet::Three62, 3));
+        // One more residue store of 2^21 words in RAM.
+        assert_eq!(p4.ram_bytes - p3.ram_bytes, 8 << 21);
+        assert_eq!(p4.passes[0].name, "columns of A, four primes");
+        assert_eq!(p4.passes.len(), p3.passes.len() + 3);
+        // Out of core, one more residue store of scratch.
+        r.memory = 32 << 20;
+        r.primes = four;
+        let o4 = plan(&r).unwrap();
+        r.primes = PrimeSet::Three62;
+        let o3 = plan(&r).unwrap();
+        assert!(matches!(o4.algorithm, Algorithm::OutOfCore { .. }));
+        assert_eq!(o4.scratch_bytes - o3.scratch_bytes, 8 << 21);
+    }
+
+    /// Past the four primes' 2^32 points the plan takes the three primes
+    /// below 2^62 rather than refusing.
+    #[test]
+    fn products_past_the_four_prime_limit_use_three_primes() {
+        let four = PrimeSet::Four50(crate::ntt50::Kernel::Scalar);
+        // 2^32 + 1 coefficients: the shortest length, 3 * 2^31, is past
+        // 2^32.
+        let mut r = req((1 << 31) + 2, 1 << 31);
+        r.primes = four;
+        r.memory = 1 << 30;
+        r.input_bytes = 1 << 35;
+        let p = plan(&r).unwrap();
+        assert_eq!(p.prime_set, PrimeSet::Three62, "{p:?}");
+        assert_eq!(p.primes.len(), 3);
+        // 2^32 - 1 coefficients fit 2^32 points.
+        let mut r = req(1 << 31, 1 << 31);
+        r.primes = four;
+        r.memory = 1 << 30;
+        r.input_bytes = 1 << 35;
+        assert_eq!(plan(&r).unwrap().prime_set, four);
     }
 
     #[test]
@@ -661,10 +767,9 @@ mod tests {
                             };
                             assert!(shape.len() >= limbs + limbs / 3);
                             assert_eq!(shape.cols % shape.lanes, 0);
-                            assert!(coefficient_bound_holds(
-                                (limbs / 3 + 1) as u64,
-                                radix.max_limb()
-                            ));
+                            assert!(p.prime_set.exact_for((limbs / 3 + 1) as u64, radix));
+                            assert!(p.prime_set.supports_len(shape.len()));
+                            assert_eq!(p.primes.len(), p.prime_set.count());
                         }
                         Err(e) => {
                             let text = e.to_string();
@@ -723,7 +828,7 @@ mod tests {
                             assert!(piece * count >= long && piece * (count - 1) < long);
                             if let Some(s) = shape {
                                 assert!(s.len() >= piece + short - 1, "{p:?}");
-                                assert!(coefficient_bound_holds(short as u64, radix.max_limb()));
+                                assert!(p.prime_set.exact_for(short as u64, radix));
                             }
                             assert_eq!(product_on_disk, p.scratch_bytes > 0);
                         }

@@ -416,6 +416,7 @@ mod tests {
             force: crate::plan::Force::Schoolbook,
             memory: 1 << 30,
             input_bytes: 160,
+            primes: crate::primeset::PrimeSet::Three62,
         })
         .unwrap();
         assert_eq!(p.algorithm, Algorithm::Schoolbook);

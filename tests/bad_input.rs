@@ -732,3 +732,46 @@ fn verification_failures() {
         &["a.txt: no manifest beside it", "vastmul check A B C"],
     );
 }
+
+/// A kernel path that does not exist, or that the CPU lacks, is refused
+/// before any work (exit 2, naming the variable and its values), never
+/// replaced by another path silently.
+#[test]
+fn an_unknown_or_unsupported_kernel_is_refused() {
+    let t = tempfile::tempdir().unwrap();
+    let dir = t.path();
+    ok(
+        dir,
+        &["gen", "--digits", "5000", "--seed", "1", "-o", "a.txt"],
+    );
+    ok(
+        dir,
+        &["gen", "--digits", "5000", "--seed", "2", "-o", "b.txt"],
+    );
+    let args = ["mul", "a.txt", "b.txt", "-o", "c.txt"];
+    let refuse = |value: &str, fragments: &[&str]| {
+        let b = before(dir, &args);
+        let o = Command::new(env!("CARGO_BIN_EXE_vastmul"))
+            .args(args)
+            .current_dir(dir)
+            .env_remove("RUST_BACKTRACE")
+            .env("VASTMUL_KERNEL", value)
+            .output()
+            .expect("run vastmul");
+        check_refusal(dir, &args, &o, &b, 2, fragments);
+    };
+    refuse(
+        "sse9",
+        &["VASTMUL_KERNEL", "ifma, avx2, scalar or wide", "unset"],
+    );
+    for (k, name) in [
+        (vastmul::ntt50::Kernel::Avx2, "avx2"),
+        (vastmul::ntt50::Kernel::Ifma, "ifma"),
+    ] {
+        if k.is_supported() {
+            println!("{name} is supported here: its refusal is not testable");
+        } else {
+            refuse(name, &["VASTMUL_KERNEL", "does not support"]);
+        }
+    }
+}

@@ -13,6 +13,7 @@ use common::*;
 use num_bigint::BigUint;
 use vastmul::engine::{multiply, multiply_forced};
 use vastmul::plan::{plan, shape_for, Algorithm, Force, Request, SCHOOLBOOK_ALWAYS};
+use vastmul::primeset::PrimeSet;
 use vastmul::radix::DEC_BASE;
 use vastmul::Radix;
 
@@ -569,10 +570,11 @@ fn schoolbook_threshold_lengths_match_reference() {
 
 /// The transform length the planner must pick for `coefficients`
 /// coefficients: the smallest power of two holding them (at least 2), or
-/// three quarters of it when that holds them too (from 2^10 points on).
-fn expected_transform_len(coefficients: usize) -> usize {
+/// three quarters of it when that holds them too (from 2^10 points on), for
+/// a prime set whose kernels take that length.
+fn expected_transform_len(coefficients: usize, set: PrimeSet) -> usize {
     let p = coefficients.max(2).next_power_of_two();
-    if p >= 1 << 10 && coefficients <= p / 4 * 3 {
+    if p >= 1 << 10 && coefficients <= p / 4 * 3 && set.supports_len(p / 4 * 3) {
         p / 4 * 3
     } else {
         p
@@ -619,7 +621,7 @@ fn transform_length_boundaries_balanced_match_reference() {
                 let lb = coefficients + 1 - la;
                 assert_eq!(
                     planned_shape(la, lb, radix).len(),
-                    expected_transform_len(coefficients),
+                    expected_transform_len(coefficients, PrimeSet::preferred()),
                     "{la}x{lb}"
                 );
                 let a = rng.limbs(la, radix);
@@ -652,7 +654,10 @@ fn transform_length_boundaries_long_by_short_match_reference() {
     for coefficients in [1 << 20, (1 << 20) + 1, (1 << 23) + 1] {
         let la = coefficients + 1 - short;
         let shape = planned_shape(la, short, Radix::Binary);
-        assert_eq!(shape.len(), expected_transform_len(coefficients));
+        assert_eq!(
+            shape.len(),
+            expected_transform_len(coefficients, PrimeSet::preferred())
+        );
         if coefficients > 1 << 23 {
             assert!(
                 shape.rows < shape.cols / 2,
@@ -692,12 +697,16 @@ fn shapes_cover_every_length_minimally() {
         let p = 1usize << k;
         let t = 3 * p;
         for min_len in [p.saturating_sub(1).max(1), p, p + 1, t - 1, t, t + 1] {
-            let s = shape_for(min_len);
-            assert_eq!(
-                s.len(),
-                expected_transform_len(min_len),
-                "len for {min_len}"
-            );
+            for set in PrimeSet::all_supported() {
+                let s = shape_for(min_len, set);
+                assert_eq!(
+                    s.len(),
+                    expected_transform_len(min_len, set),
+                    "len for {min_len}, {set:?}"
+                );
+                assert!(set.supports_len(s.cols), "{min_len}: {s:?}");
+            }
+            let s = shape_for(min_len, PrimeSet::Three62);
             assert_eq!(s.rows * s.cols, s.len(), "rows*cols for {min_len}");
             let cols_odd = s.cols >> s.cols.trailing_zeros();
             assert!(
@@ -784,7 +793,7 @@ fn planner_auto_choices_match_expectations() {
                     Algorithm::Ntt { shape } => {
                         assert_eq!(
                             shape.len(),
-                            expected_transform_len(la + lb - 1),
+                            expected_transform_len(la + lb - 1, PrimeSet::preferred()),
                             "{la}x{lb}"
                         )
                     }
@@ -804,4 +813,89 @@ fn planner_auto_choices_match_expectations() {
         );
         assert!(matches!(forced(1, 1, Force::Ntt), Algorithm::Ntt { shape } if shape.len() == 2));
     }
+}
+
+// ---------------------------------------------------------------------------
+// Every prime set and kernel path in one run.
+// ---------------------------------------------------------------------------
+
+/// The NTT on every prime set this CPU runs (three primes below 2^62; four
+/// below 2^50 with the scalar, AVX2 and IFMA kernels), on the same
+/// operands, against num-bigint: random pairs across the transform lengths
+/// `2^k` and `3 * 2^k` and one past them, all-maximal limbs (the largest
+/// coefficients), radix powers and their neighbours, squares. A path the CPU
+/// lacks is named as skipped.
+#[test]
+fn every_prime_set_matches_reference() {
+    use vastmul::engine::multiply_on;
+    use vastmul::ntt50::Kernel;
+    let sets = PrimeSet::all_supported();
+    for k in Kernel::ALL {
+        if !k.is_supported() {
+            eprintln!(
+                "every_prime_set_matches_reference: {} kernels SKIPPED (CPU lacks them)",
+                k.name()
+            );
+        }
+    }
+    for radix in RADIXES {
+        let mut rng = Rng::new(seed(radix, 900));
+        let mut cases: Vec<(String, Vec<u64>, Vec<u64>)> = Vec::new();
+        for coefficients in [1023usize, 1024, 1025, 3071, 3072, 3073, 12_289, 98_305] {
+            let la = coefficients.div_ceil(2);
+            let lb = coefficients + 1 - la;
+            cases.push((
+                format!("random {la}x{lb}"),
+                rng.limbs(la, radix),
+                rng.limbs(lb, radix),
+            ));
+        }
+        for (la, lb) in [(3000, 3000), (40_000, 9)] {
+            cases.push((
+                format!("max limbs {la}x{lb}"),
+                radix_power_minus_one(la, radix),
+                radix_power_minus_one(lb, radix),
+            ));
+        }
+        cases.push((
+            "B^4097+1 * B^2000-1".into(),
+            radix_power_plus_one(4097),
+            radix_power_minus_one(2000, radix),
+        ));
+        let sq = rng.limbs(5000, radix);
+        cases.push(("square 5000".into(), sq.clone(), sq));
+        for (what, a, b) in &cases {
+            let expected = to_big(a, radix) * to_big(b, radix);
+            for &set in &sets {
+                let got = multiply_on(a, b, radix, Force::Ntt, set);
+                let ctx = format!("{what} [{} {set:?}]", radix.name());
+                assert_well_formed(&got, radix, &ctx);
+                let value = match radix {
+                    Radix::Binary => binary_to_big(&got),
+                    Radix::Decimal => decimal_to_big(&got),
+                };
+                assert!(value == expected, "{ctx}: product differs from num-bigint");
+            }
+        }
+    }
+}
+
+/// A forced path is the path planned: VASTMUL_KERNEL (as the kernel test
+/// script sets it) selects the prime set every product of this process
+/// uses, so a forced run can never silently test another one.
+#[test]
+fn plans_follow_the_forced_kernel() {
+    let want = PrimeSet::from_env().expect("VASTMUL_KERNEL names a path this CPU runs");
+    let p = plan(&Request::in_memory(
+        50_000,
+        50_000,
+        Radix::Binary,
+        false,
+        2,
+        Force::Ntt,
+    ))
+    .unwrap();
+    assert_eq!(p.prime_set, want);
+    assert_eq!(p.primes, want.primes());
+    eprintln!("plans_follow_the_forced_kernel: {want:?}");
 }

@@ -25,6 +25,19 @@ fn operands(dir: &Path) {
 
 const MUL: &[&str] = &["mul", "a.txt", "b.txt", "-o", "c.txt", "--memory", "16MiB"];
 
+/// How many passes `MUL` plans in `dir` (it depends on the prime set the
+/// CPU or VASTMUL_KERNEL selects), from `vastmul plan --json`.
+fn planned_passes(dir: &Path) -> usize {
+    let o = Command::new(BIN)
+        .current_dir(dir)
+        .args(["plan", "a.txt", "b.txt", "--memory", "16MiB", "--json"])
+        .output()
+        .unwrap();
+    assert!(o.status.success(), "{o:?}");
+    let plan: serde_json::Value = serde_json::from_slice(&o.stdout).unwrap();
+    plan["passes"].as_array().expect("passes in the plan").len()
+}
+
 /// Runs `args` under a pseudo-terminal; `None` when `script` is missing.
 fn under_pty(dir: &Path, args: &[&str]) -> Option<Output> {
     // A known width, so that the screen below matches the terminal's.
@@ -116,7 +129,11 @@ fn bars_appear_on_a_terminal_and_are_cleared_at_the_end() {
     assert!(!raw.contains("panicked at"), "{raw}");
     // What was drawn: both bars, with a pass position, rates and ETAs.
     assert!(raw.contains("overall ["), "no overall bar in {raw}");
-    assert!(raw.contains("pass 1/12 ["), "no pass bar in {raw}");
+    let n = planned_passes(t.path());
+    assert!(
+        raw.contains(&format!("pass 1/{n} [")),
+        "no pass bar in {raw}"
+    );
     assert!(raw.contains("ETA"), "{raw}");
     assert!(
         raw.contains("\u{1b}[2K"),
@@ -137,7 +154,7 @@ fn bars_appear_on_a_terminal_and_are_cleared_at_the_end() {
     assert!(
         shown
             .iter()
-            .any(|l| l.contains("done pass 12/12 write the product")),
+            .any(|l| l.contains(&format!("done pass {n}/{n} write the product"))),
         "{shown:#?}"
     );
     assert!(Path::new(&t.path().join("c.txt")).exists());
@@ -184,8 +201,9 @@ fn plain_timestamped_lines_without_a_terminal() {
     assert!(status.len() >= 3, "{err}");
     assert!(status.iter().any(|l| l.contains("pass ETA")), "{err}");
     // One line per completed pass, in order.
-    for i in 1..=12 {
-        let needle = format!("done pass {i}/12 ");
+    let n = planned_passes(t.path());
+    for i in 1..=n {
+        let needle = format!("done pass {i}/{n} ");
         assert!(log.iter().any(|l| l.contains(&needle)), "{needle} in {err}");
     }
 }
@@ -283,10 +301,14 @@ fn after_a_resume_the_display_starts_where_the_run_stopped() {
     assert!(err.contains("resuming from"), "{err}");
     // The passes the first run completed are reported as done before, not
     // as done in no time.
-    for pass in ["pass 1/12 columns of A", "pass 2/12 columns of B, prime 0"] {
+    let n = planned_passes(t.path());
+    for pass in [
+        format!("pass 1/{n} columns of A"),
+        format!("pass 2/{n} columns of B, prime 0"),
+    ] {
         let line = err
             .lines()
-            .find(|l| l.contains(pass))
+            .find(|l| l.contains(&pass))
             .unwrap_or_else(|| panic!("no line for {pass} in {err}"));
         assert!(line.ends_with("done before the interruption"), "{line}");
     }
@@ -301,8 +323,8 @@ fn after_a_resume_the_display_starts_where_the_run_stopped() {
         "overall {first}% right after the resume: {err}"
     );
     // Every pass after them runs, and ends done.
-    for i in 3..=12 {
-        let needle = format!("done pass {i}/12 ");
+    for i in 3..=n {
+        let needle = format!("done pass {i}/{n} ");
         assert!(err.contains(&needle), "{needle} in {err}");
     }
 }
@@ -332,4 +354,90 @@ fn check_reports_each_file_it_reads() {
     // The verdict stays on stdout, the progress on stderr.
     assert!(String::from_utf8_lossy(&o.stdout).contains("check passed"));
     assert!(!err.contains("check passed"), "{err}");
+}
+
+/// Starts `MUL` in `d` with `VASTMUL_KERNEL=kernel` and stops it by SIGINT
+/// once the rows of the first prime are under way; false when the run
+/// finished first (nothing left to resume).
+fn interrupt_under(d: &Path, kernel: &str) -> bool {
+    let mut child = Command::new(BIN)
+        .args(MUL)
+        .current_dir(d)
+        .env("VASTMUL_KERNEL", kernel)
+        .stderr(std::process::Stdio::piped())
+        .spawn()
+        .unwrap();
+    let started = std::time::Instant::now();
+    while journal_step(d).is_none_or(|s| s < 2) {
+        if child.try_wait().unwrap().is_some() {
+            return false;
+        }
+        assert!(
+            started.elapsed().as_secs() < 120,
+            "no progress in the journal"
+        );
+        std::thread::sleep(std::time::Duration::from_millis(2));
+    }
+    // SAFETY: kill only sends a signal to our own child's pid.
+    unsafe {
+        libc::kill(child.id() as i32, libc::SIGINT);
+    }
+    let o = child.wait_with_output().unwrap();
+    if o.status.success() {
+        return false;
+    }
+    assert_eq!(o.status.code(), Some(130), "{o:?}");
+    true
+}
+
+/// A run interrupted on the portable four-prime kernels resumes on the
+/// vector kernels of the same primes and ends with the product of an
+/// uninterrupted run; resuming it on the three-prime set instead is
+/// refused (another plan), naming VASTMUL_KERNEL.
+#[test]
+fn an_interrupted_run_resumes_on_another_kernel_of_the_same_primes() {
+    use vastmul::primeset::PrimeSet;
+    let vector = match PrimeSet::detect() {
+        PrimeSet::Four50(k) => k.name(),
+        PrimeSet::Three62 => {
+            println!("skipped: this CPU has no vector kernel to resume on");
+            return;
+        }
+    };
+    let t = tempfile::tempdir().unwrap();
+    let d = t.path();
+    operands(d);
+    let o = Command::new(BIN)
+        .args(["mul", "a.txt", "b.txt", "-o", "ref.txt", "-q"])
+        .current_dir(d)
+        .output()
+        .unwrap();
+    assert!(o.status.success(), "{o:?}");
+    if !interrupt_under(d, "scalar") {
+        println!("skipped: the run finished before it could be interrupted");
+        return;
+    }
+    let o = Command::new(BIN)
+        .args(MUL)
+        .current_dir(d)
+        .env("VASTMUL_KERNEL", "wide")
+        .output()
+        .unwrap();
+    let err = String::from_utf8_lossy(&o.stderr);
+    assert_eq!(o.status.code(), Some(2), "{err}");
+    assert!(err.contains("VASTMUL_KERNEL"), "{err}");
+    let o = Command::new(BIN)
+        .args(MUL)
+        .current_dir(d)
+        .env("VASTMUL_KERNEL", vector)
+        .output()
+        .unwrap();
+    let err = String::from_utf8_lossy(&o.stderr);
+    assert!(o.status.success(), "{err}");
+    assert!(err.contains("resuming from"), "{err}");
+    assert_eq!(
+        std::fs::read(d.join("c.txt")).unwrap(),
+        std::fs::read(d.join("ref.txt")).unwrap(),
+        "the resumed product differs from the uninterrupted one"
+    );
 }

@@ -24,7 +24,7 @@
 //! 4-element blocks run on transposed 4x4 tiles.
 
 use super::{
-    check_shape, quarters, require, scalar, Kernel, Modulus50, MulConst, PowerChain, Table,
+    check_shape, quarters, require, scalar, Kernel, Modulus50, MulConst, PowerChain, Radix3, Table,
     Twiddles,
 };
 use core::arch::x86_64::*;
@@ -90,6 +90,38 @@ pub fn pointwise(a: &mut [u64], b: &[u64], scale: u64, m: &Modulus50) {
     // SAFETY: `require` checked that the CPU has every feature the callee
     // is compiled for.
     unsafe { pointwise_all(a, b, scale, m) }
+}
+
+/// `a[i] = a[i] mod p` lazily, into `[0, 2p)`, for any 64-bit words.
+/// Panics if the CPU lacks AVX2 or FMA.
+pub fn reduce_words(a: &mut [u64], m: &Modulus50) {
+    require(Kernel::Avx2);
+    // SAFETY: `require` checked that the CPU has every feature the callee
+    // is compiled for.
+    unsafe { reduce_all(a, m) }
+}
+
+/// The radix-3 step of a forward transform of length `3m`: `[0, 2p)` in
+/// and out. Panics if the CPU lacks AVX2 or FMA.
+pub fn radix3_forward(a: &mut [u64], t: &Radix3) {
+    assert_eq!(a.len(), 3 * t.sub.len(), "buffer is not 3m long");
+    require(Kernel::Avx2);
+    // SAFETY: `require` checked that the CPU has every feature the callee
+    // is compiled for.
+    let done = unsafe { radix3_vectors::<FORWARD>(a, t) };
+    scalar::radix3_forward_from(a, t, done);
+}
+
+/// The radix-3 step of an inverse transform of length `3m`, after its
+/// sub-transforms: `[0, 4p)` in and out, times 3. Panics if the CPU lacks
+/// AVX2 or FMA.
+pub fn radix3_inverse(a: &mut [u64], t: &Radix3) {
+    assert_eq!(a.len(), 3 * t.sub.len(), "buffer is not 3m long");
+    require(Kernel::Avx2);
+    // SAFETY: `require` checked that the CPU has every feature the callee
+    // is compiled for.
+    let done = unsafe { radix3_vectors::<INVERSE>(a, t) };
+    scalar::radix3_inverse_from(a, t, done);
 }
 
 /// `row[j] = row[j] * step^j mod p`: `[0, 4p)` in, `[0, 2p)` out. Panics
@@ -597,6 +629,97 @@ fn pointwise_all(a: &mut [u64], b: &[u64], scale: u64, m: &Modulus50) {
         let v = mul_var(load_part(x, k), load_part(y, k), k);
         store_part(x, mul_fixed(v, s, k), k);
     }
+}
+
+/// One vector of words reduced like the scalar path, in doubles: the high
+/// half times `2^32 mod p` (`(0, 2p)`, both halves being exact doubles)
+/// plus the low half (below `p`), brought below `2p`.
+#[inline]
+#[target_feature(enable = "avx2,fma")]
+fn reduce_word_vector(x: __m256i, c: Tw, k: Consts) -> D {
+    let hi = to_f64(_mm256_srli_epi64::<32>(x), k);
+    let lo = to_f64(_mm256_and_si256(x, _mm256_set1_epi64x(0xffff_ffff)), k);
+    reduce_2p(_mm256_add_pd(mul_fixed(hi, c, k), lo), k)
+}
+
+#[target_feature(enable = "avx2,fma")]
+fn reduce_all(a: &mut [u64], m: &Modulus50) {
+    let (k, c) = (consts(m), splat_tw(scalar::word_split(m)));
+    let (xs, x) = a.as_chunks_mut::<W>();
+    for xv in xs.iter_mut() {
+        // SAFETY: `xv` is W initialised words; the load is unaligned.
+        let v = unsafe { _mm256_loadu_si256(xv.as_ptr().cast()) };
+        store(xv, reduce_word_vector(v, c, k), k);
+    }
+    if !x.is_empty() {
+        let mask = part_mask(x.len());
+        // SAFETY: the mask enables only lanes below `x.len()`; masked-off
+        // lanes are neither read nor able to fault.
+        let v = unsafe { _mm256_maskload_epi64(x.as_ptr().cast(), mask) };
+        store_part(x, reduce_word_vector(v, c, k), k);
+    }
+}
+
+/// `x * w` for `x` in `[0, 4p)`: centred to `[-2p, 2p)` first, the range
+/// [`mul_fixed`] is exact for; result in `(0, 2p)`.
+#[inline]
+#[target_feature(enable = "avx2,fma")]
+fn mul_fixed_4p(x: D, t: Tw, k: Consts) -> D {
+    mul_fixed(_mm256_sub_pd(x, k.two_p), t, k)
+}
+
+/// The radix-3 sums of [`scalar::radix3_sums`] in doubles, four positions
+/// at once: `b - c` lies in `(-2p, 2p)`, inside [`mul_fixed`]'s range.
+#[inline]
+#[target_feature(enable = "avx2,fma")]
+fn radix3_sums(a: D, b: D, c: D, omega: Tw, k: Consts) -> [D; 3] {
+    let y0 = reduce_2p(_mm256_add_pd(reduce_2p(_mm256_add_pd(a, b), k), c), k);
+    let t = mul_fixed(_mm256_sub_pd(b, c), omega, k);
+    let e1 = reduce_2p(_mm256_sub_pd(_mm256_add_pd(a, k.two_p), c), k);
+    let e2 = reduce_2p(_mm256_sub_pd(_mm256_add_pd(a, k.two_p), b), k);
+    [
+        y0,
+        _mm256_add_pd(e1, t),
+        _mm256_sub_pd(_mm256_add_pd(e2, k.two_p), t),
+    ]
+}
+
+/// The radix-3 step over the whole vectors of the thirds; returns the
+/// position where the scalar tail begins.
+#[target_feature(enable = "avx2,fma")]
+fn radix3_vectors<const FWD: bool>(a: &mut [u64], t: &Radix3) -> usize {
+    let k = consts(t.sub.modulus());
+    let third = t.sub.len();
+    let full = third / W * W;
+    let [x, y, z] = scalar::thirds(a);
+    let (x, y, z) = (
+        vectors_mut(&mut x[..full]),
+        vectors_mut(&mut y[..full]),
+        vectors_mut(&mut z[..full]),
+    );
+    let (t1, t2, omega) = if FWD {
+        (&t.fwd1, &t.fwd2, t.omega)
+    } else {
+        (&t.inv1, &t.inv2, t.omega_inv)
+    };
+    let (r1, r2) = (Run::new(t1, 0, full), Run::new(t2, 0, full));
+    let omega = splat_tw(omega);
+    for v in 0..full / W {
+        let (a, b, c) = (load(&x[v], k), load(&y[v], k), load(&z[v], k));
+        let (w1, w2) = (load_tw(&r1, v), load_tw(&r2, v));
+        let out = if FWD {
+            let [s0, s1, s2] = radix3_sums(a, b, c, omega, k);
+            [s0, mul_fixed_4p(s1, w1, k), mul_fixed_4p(s2, w2, k)]
+        } else {
+            let z0 = reduce_2p(a, k);
+            let (z1, z2) = (mul_fixed_4p(b, w1, k), mul_fixed_4p(c, w2, k));
+            radix3_sums(z0, z1, z2, omega, k)
+        };
+        store(&mut x[v], out[0], k);
+        store(&mut y[v], out[1], k);
+        store(&mut z[v], out[2], k);
+    }
+    full
 }
 
 /// Vectors of powers advanced independently in [`twiddle_all`], so that

@@ -105,7 +105,12 @@ impl Crt50 {
     /// reduced residues (each below 2^52), as four little-endian words.
     #[inline(always)]
     pub fn combine_wide(&self, r: [u64; K]) -> [u64; 4] {
-        let y = self.digits(r);
+        self.value_of_digits(self.digits(r))
+    }
+
+    /// The integer with mixed-radix digits `y` (each `y_i < p_i`).
+    #[inline(always)]
+    fn value_of_digits(&self, y: [u64; K]) -> [u64; 4] {
         let p = self.m.map(|m| m.p as u128);
         // Horner from the top digit: y3 p2 + y2 < 2^100 fits a u128, then
         // one word at a time as the value widens past it.
@@ -149,6 +154,85 @@ impl Crt50 {
             top, 0,
             "coefficient exceeds 192 bits: the residues are not those of a product"
         );
+    }
+}
+
+/// Positions combined per call of a kernel's digit function: its buffers
+/// stay in L1.
+const DIGIT_BLOCK: usize = 256;
+
+impl Crt50 {
+    /// The coefficients with residues `residues[i][k]`, as
+    /// [`Crt50::coefficients`], the mixed-radix digits computed by `kernel`
+    /// (the IFMA path vectorises them; the others use the scalar digits).
+    /// Residues are taken modulo 2^52. Returns false, with `out` filled
+    /// anyway, when any residue had bits above 52 or any value reached
+    /// 2^192: residues that no product leaves, so corrupted data. Never
+    /// panics on such data.
+    pub fn coefficients_checked(
+        &self,
+        kernel: super::Kernel,
+        residues: [&[u64]; K],
+        out: &mut [[u64; 3]],
+    ) -> bool {
+        let n = out.len();
+        assert!(
+            residues.iter().all(|r| r.len() == n),
+            "residue slices and output differ in length"
+        );
+        let mut bad = 0u64;
+        let mut r = [[0u64; DIGIT_BLOCK]; K];
+        let mut y = [[0u64; DIGIT_BLOCK]; K];
+        for first in (0..n).step_by(DIGIT_BLOCK) {
+            let len = DIGIT_BLOCK.min(n - first);
+            for (ri, src) in r.iter_mut().zip(residues) {
+                for (d, &x) in ri[..len].iter_mut().zip(&src[first..first + len]) {
+                    bad |= x;
+                    *d = x & MASK52;
+                }
+            }
+            self.digits_block(kernel, &r, &mut y, len);
+            for (k, o) in out[first..first + len].iter_mut().enumerate() {
+                let [w0, w1, w2, w3] = self.value_of_digits([y[0][k], y[1][k], y[2][k], y[3][k]]);
+                bad |= w3 << 52;
+                *o = [w0, w1, w2];
+            }
+        }
+        bad >> 52 == 0
+    }
+
+    /// The digits of the first `len` positions of `r` into `y`.
+    fn digits_block(
+        &self,
+        kernel: super::Kernel,
+        r: &[[u64; DIGIT_BLOCK]; K],
+        y: &mut [[u64; DIGIT_BLOCK]; K],
+        len: usize,
+    ) {
+        #[cfg(target_arch = "x86_64")]
+        if kernel == super::Kernel::Ifma {
+            let [y0, y1, y2, y3] = y;
+            super::ifma::garner_digits(
+                [&r[0][..len], &r[1][..len], &r[2][..len], &r[3][..len]],
+                [
+                    &mut y0[..len],
+                    &mut y1[..len],
+                    &mut y2[..len],
+                    &mut y3[..len],
+                ],
+                &self.m,
+                &self.s,
+                &self.c,
+            );
+            return;
+        }
+        let _ = kernel;
+        for k in 0..len {
+            let d = self.digits([r[0][k], r[1][k], r[2][k], r[3][k]]);
+            for (yi, di) in y.iter_mut().zip(d) {
+                yi[k] = di;
+            }
+        }
     }
 }
 
@@ -385,6 +469,64 @@ mod tests {
                 want.resize(n, [0; 3]);
                 assert_eq!(out, want, "{k:?} {}x{}", a.len(), b.len());
             }
+        }
+    }
+
+    /// The checked block form on every path against num-bigint: the
+    /// special and random values with every lift, in blocks that end on
+    /// and off the vector width and the digit block; then residues no
+    /// product leaves (a bit above 52, a value of 2^192 or more) make it
+    /// report false rather than panic.
+    #[test]
+    fn checked_coefficients_match_the_reference_on_every_path() {
+        let mut values = special_values();
+        values.retain(|v| v.bits() <= 192);
+        values.extend(random_values(700, 91));
+        let scale = [1 << 20; K];
+        let crt = Crt50::new(scale);
+        let res: Vec<[u64; K]> = values
+            .iter()
+            .enumerate()
+            .map(|(k, v)| scaled_residues(v, scale, [(k % 4) as u64; K]))
+            .collect();
+        let cols: [Vec<u64>; K] = core::array::from_fn(|i| res.iter().map(|r| r[i]).collect());
+        for kernel in Kernel::ALL.into_iter().filter(|k| k.is_supported()) {
+            for len in [0usize, 1, 7, 8, 9, 255, 256, 257, values.len()] {
+                let mut out = vec![[0u64; 3]; len];
+                let r = [
+                    &cols[0][..len],
+                    &cols[1][..len],
+                    &cols[2][..len],
+                    &cols[3][..len],
+                ];
+                assert!(
+                    crt.coefficients_checked(kernel, r, &mut out),
+                    "{kernel:?} {len}"
+                );
+                for (k, o) in out.iter().enumerate() {
+                    assert_eq!(big(o), values[k], "{kernel:?} len {len} value {k}");
+                }
+            }
+            // A residue with a bit above 52, anywhere in a block.
+            for at in [0usize, 5, 300] {
+                let mut bad = cols.clone();
+                bad[at % K][at] |= 1 << 60;
+                let r = [&bad[0][..], &bad[1][..], &bad[2][..], &bad[3][..]];
+                let mut out = vec![[0u64; 3]; values.len()];
+                assert!(
+                    !crt.coefficients_checked(kernel, r, &mut out),
+                    "{kernel:?} bit at {at}"
+                );
+            }
+            // Residues of a value of 2^192 and more.
+            let big_value = (BigUint::from(1u32) << 192usize) + BigUint::from(12345u32);
+            let r1 = scaled_residues(&big_value, scale, [0; K]);
+            let r = [&r1[0..1], &r1[1..2], &r1[2..3], &r1[3..4]];
+            let mut out = vec![[0u64; 3]; 1];
+            assert!(
+                !crt.coefficients_checked(kernel, r, &mut out),
+                "{kernel:?} 2^192"
+            );
         }
     }
 }

@@ -21,7 +21,7 @@
 
 use super::{
     check_shape, montgomery_scale, quarters, require, scalar, Kernel, Modulus50, MulConst,
-    PowerChain, Table, Twiddles, MASK52,
+    PowerChain, Radix3, Table, Twiddles, MASK52,
 };
 use core::arch::x86_64::*;
 
@@ -79,6 +79,58 @@ pub fn pointwise(a: &mut [u64], b: &[u64], scale: u64, m: &Modulus50) {
     // SAFETY: `require` checked that the CPU has every feature the callee
     // is compiled for.
     unsafe { pointwise_all(a, b, scale, m) }
+}
+
+/// `a[i] = a[i] mod p` lazily, into `[0, 2p)`, for any 64-bit words.
+/// Panics if the CPU lacks IFMA.
+pub fn reduce_words(a: &mut [u64], m: &Modulus50) {
+    require(Kernel::Ifma);
+    // SAFETY: `require` checked that the CPU has every feature the callee
+    // is compiled for.
+    unsafe { reduce_all(a, m) }
+}
+
+/// Garner's mixed-radix digits of four residue streams, eight positions at
+/// a time, value for value as [`super::crt::Crt50`]'s scalar digits: `r[i]`
+/// below 2^52, `y[i]` filled with digits in `[0, p_i)`; `s` and `c` are the
+/// Garner constants (`c[i][j]` for `j < i`). Panics if the CPU lacks IFMA or
+/// the slices differ in length.
+pub(crate) fn garner_digits(
+    r: [&[u64]; 4],
+    y: [&mut [u64]; 4],
+    m: &[Modulus50; 4],
+    s: &[MulConst; 4],
+    c: &[[MulConst; 4]; 4],
+) {
+    let n = r[0].len();
+    assert!(r.iter().all(|x| x.len() == n) && y.iter().all(|x| x.len() == n));
+    require(Kernel::Ifma);
+    // SAFETY: `require` checked that the CPU has every feature the callee
+    // is compiled for.
+    unsafe { garner_all(r, y, m, s, c) }
+}
+
+/// The radix-3 step of a forward transform of length `3m`: `[0, 2p)` in
+/// and out. Panics if the CPU lacks IFMA.
+pub fn radix3_forward(a: &mut [u64], t: &Radix3) {
+    assert_eq!(a.len(), 3 * t.sub.len(), "buffer is not 3m long");
+    require(Kernel::Ifma);
+    // SAFETY: `require` checked that the CPU has every feature the callee
+    // is compiled for.
+    let done = unsafe { radix3_vectors::<FORWARD>(a, t) };
+    scalar::radix3_forward_from(a, t, done);
+}
+
+/// The radix-3 step of an inverse transform of length `3m`, after its
+/// sub-transforms: `[0, 4p)` in and out, times 3. Panics if the CPU lacks
+/// IFMA.
+pub fn radix3_inverse(a: &mut [u64], t: &Radix3) {
+    assert_eq!(a.len(), 3 * t.sub.len(), "buffer is not 3m long");
+    require(Kernel::Ifma);
+    // SAFETY: `require` checked that the CPU has every feature the callee
+    // is compiled for.
+    let done = unsafe { radix3_vectors::<INVERSE>(a, t) };
+    scalar::radix3_inverse_from(a, t, done);
 }
 
 /// `row[j] = row[j] * step^j mod p`: `[0, 4p)` in, `[0, 2p)` out. Panics
@@ -625,6 +677,151 @@ fn pointwise_all(a: &mut [u64], b: &[u64], scale: u64, m: &Modulus50) {
     if !x.is_empty() {
         store_part(x, mul_scaled(load_part(x), load_part(y), s, k));
     }
+}
+
+/// One vector of words reduced as the scalar path does it: the high half
+/// times `2^32 mod p` (a Shoup product, `[0, 2p)`) plus the low half (below
+/// `p`), brought below `2p`.
+#[inline]
+#[target_feature(enable = "avx512f,avx512ifma,avx512vl")]
+fn reduce_word_vector(x: V, c: Tw, k: Consts) -> V {
+    let hi = _mm512_srli_epi64::<32>(x);
+    let lo = _mm512_and_si512(x, splat(0xffff_ffff));
+    reduce_2p(_mm512_add_epi64(mul_shoup(hi, c, k), lo), k)
+}
+
+#[target_feature(enable = "avx512f,avx512ifma,avx512vl")]
+fn reduce_all(a: &mut [u64], m: &Modulus50) {
+    let (k, c) = (consts(m), splat_tw(scalar::word_split(m)));
+    let (xs, x) = a.as_chunks_mut::<W>();
+    for xv in xs.iter_mut() {
+        store(xv, reduce_word_vector(load(xv), c, k));
+    }
+    if !x.is_empty() {
+        store_part(x, reduce_word_vector(load_part(x), c, k));
+    }
+}
+
+/// The digits of one vector of positions (see [`garner_digits`]): each
+/// term stays in `[0, 2p_i)`, a difference lifted by `2p_i` and brought
+/// back below it.
+#[inline]
+#[target_feature(enable = "avx512f,avx512ifma,avx512vl")]
+fn garner_vector(x: [V; 4], k: &[Consts; 4], s: &[Tw; 4], c: &[[Tw; 4]; 4]) -> [V; 4] {
+    let mut y = [_mm512_setzero_si512(); 4];
+    for i in 0..4 {
+        let mut acc = mul_shoup(x[i], s[i], k[i]);
+        for j in 0..i {
+            let t = mul_shoup(y[j], c[i][j], k[i]);
+            acc = reduce_2p(_mm512_sub_epi64(_mm512_add_epi64(acc, k[i].two_p), t), k[i]);
+        }
+        y[i] = reduce_p(acc, k[i]);
+    }
+    y
+}
+
+#[target_feature(enable = "avx512f,avx512ifma,avx512vl")]
+fn garner_all(
+    r: [&[u64]; 4],
+    y: [&mut [u64]; 4],
+    m: &[Modulus50; 4],
+    s: &[MulConst; 4],
+    c: &[[MulConst; 4]; 4],
+) {
+    let k = [consts(&m[0]), consts(&m[1]), consts(&m[2]), consts(&m[3])];
+    let sv = [
+        splat_tw(s[0]),
+        splat_tw(s[1]),
+        splat_tw(s[2]),
+        splat_tw(s[3]),
+    ];
+    let mut cv = [[splat_tw(s[0]); 4]; 4];
+    for i in 0..4 {
+        for j in 0..i {
+            cv[i][j] = splat_tw(c[i][j]);
+        }
+    }
+    let n = r[0].len();
+    let [y0, y1, y2, y3] = y;
+    let full = n / W * W;
+    for at in (0..full).step_by(W).map(|i| i..i + W) {
+        let x = [
+            load(r[0][at.clone()].try_into().unwrap()),
+            load(r[1][at.clone()].try_into().unwrap()),
+            load(r[2][at.clone()].try_into().unwrap()),
+            load(r[3][at.clone()].try_into().unwrap()),
+        ];
+        let d = garner_vector(x, &k, &sv, &cv);
+        store((&mut y0[at.clone()]).try_into().unwrap(), d[0]);
+        store((&mut y1[at.clone()]).try_into().unwrap(), d[1]);
+        store((&mut y2[at.clone()]).try_into().unwrap(), d[2]);
+        store((&mut y3[at]).try_into().unwrap(), d[3]);
+    }
+    if full < n {
+        let x = [
+            load_part(&r[0][full..]),
+            load_part(&r[1][full..]),
+            load_part(&r[2][full..]),
+            load_part(&r[3][full..]),
+        ];
+        let d = garner_vector(x, &k, &sv, &cv);
+        store_part(&mut y0[full..], d[0]);
+        store_part(&mut y1[full..], d[1]);
+        store_part(&mut y2[full..], d[2]);
+        store_part(&mut y3[full..], d[3]);
+    }
+}
+
+/// The radix-3 sums of [`scalar::radix3_sums`], eight positions at once.
+#[inline]
+#[target_feature(enable = "avx512f,avx512ifma,avx512vl")]
+fn radix3_sums(a: V, b: V, c: V, omega: Tw, k: Consts) -> [V; 3] {
+    let y0 = reduce_2p(_mm512_add_epi64(reduce_2p(_mm512_add_epi64(a, b), k), c), k);
+    let t = mul_shoup(_mm512_sub_epi64(_mm512_add_epi64(b, k.two_p), c), omega, k);
+    let e1 = reduce_2p(_mm512_sub_epi64(_mm512_add_epi64(a, k.two_p), c), k);
+    let e2 = reduce_2p(_mm512_sub_epi64(_mm512_add_epi64(a, k.two_p), b), k);
+    [
+        y0,
+        _mm512_add_epi64(e1, t),
+        _mm512_sub_epi64(_mm512_add_epi64(e2, k.two_p), t),
+    ]
+}
+
+/// The radix-3 step over the whole vectors of the thirds; returns the
+/// position where the scalar tail begins.
+#[target_feature(enable = "avx512f,avx512ifma,avx512vl")]
+fn radix3_vectors<const FWD: bool>(a: &mut [u64], t: &Radix3) -> usize {
+    let k = consts(t.sub.modulus());
+    let third = t.sub.len();
+    let full = third / W * W;
+    let [x, y, z] = scalar::thirds(a);
+    let (x, y, z) = (
+        vectors_mut(&mut x[..full]),
+        vectors_mut(&mut y[..full]),
+        vectors_mut(&mut z[..full]),
+    );
+    let (t1, t2, omega) = if FWD {
+        (&t.fwd1, &t.fwd2, t.omega)
+    } else {
+        (&t.inv1, &t.inv2, t.omega_inv)
+    };
+    let (r1, r2) = (Run::new(t1, 0, full), Run::new(t2, 0, full));
+    let omega = splat_tw(omega);
+    for v in 0..full / W {
+        let (a, b, c) = (load(&x[v]), load(&y[v]), load(&z[v]));
+        let (w1, w2) = (load_tw(&r1, v), load_tw(&r2, v));
+        let out = if FWD {
+            let [s0, s1, s2] = radix3_sums(a, b, c, omega, k);
+            [s0, mul_shoup(s1, w1, k), mul_shoup(s2, w2, k)]
+        } else {
+            let z0 = reduce_2p(a, k);
+            radix3_sums(z0, mul_shoup(b, w1, k), mul_shoup(c, w2, k), omega, k)
+        };
+        store(&mut x[v], out[0]);
+        store(&mut y[v], out[1]);
+        store(&mut z[v], out[2]);
+    }
+    full
 }
 
 /// Vectors of powers advanced independently in [`twiddle_all`]: one

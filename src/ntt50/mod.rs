@@ -196,6 +196,24 @@ impl Table {
         }
     }
 
+    /// The powers `base^j` for `j < len`, in order (not heap layout).
+    fn powers(len: usize, base: u64, m: &Modulus50) -> Self {
+        let mut x = 1u64;
+        let consts: Vec<MulConst> = (0..len)
+            .map(|_| {
+                let c = MulConst::new(x, m);
+                x = m.mul(x, base);
+                c
+            })
+            .collect();
+        Table {
+            w: consts.iter().map(|c| c.w).collect(),
+            q: consts.iter().map(|c| c.q).collect(),
+            wf: consts.iter().map(|c| c.wf).collect(),
+            wq: consts.iter().map(|c| c.wq).collect(),
+        }
+    }
+
     /// Entry `i` in all its forms.
     #[inline(always)]
     pub(crate) fn get(&self, i: usize) -> MulConst {
@@ -211,6 +229,11 @@ impl Table {
 /// Forward and inverse twiddles of one transform length for one prime,
 /// shared by all three paths: each table holds every form a path
 /// multiplies by, so one value serves whichever path runs.
+///
+/// A length `3 * 2^k` carries a radix-3 step ([`Radix3`]) in front of three
+/// power-of-two transforms; only [`Kernel::forward`] and [`Kernel::inverse`]
+/// take such tables (the paths' own functions and the lanes forms take
+/// powers of two).
 #[derive(Clone, Debug)]
 pub struct Twiddles {
     len: usize,
@@ -219,14 +242,50 @@ pub struct Twiddles {
     pub(crate) fwd: Table,
     /// Inverse twiddles.
     pub(crate) inv: Table,
+    /// The radix-3 step of a length `3 * 2^k`.
+    pub(crate) three: Option<Box<Radix3>>,
+}
+
+/// The radix-3 step of a transform of length `n = 3m`, as in
+/// [`crate::ntt::Radix3`]: with `w = g^((p-1)/n)` and `omega = w^m` a
+/// primitive cube root of unity, the thirds `a, b, c` of the input become
+/// `y_r[j] = w^(jr) (a_j + omega^r b_j + omega^(2r) c_j)`, and the
+/// length-`m` transform of `y_r` (root `w^3`, from the same generator)
+/// holds the outputs `X[3k + r]`. Since `omega^2 = -1 - omega`, the sums
+/// take one product: `y_1 = (a - c) + omega (b - c)` and
+/// `y_2 = (a - b) - omega (b - c)`. The inverse multiplies by `w^(-jr)`
+/// first and runs the same sums with `omega^-1`, leaving three times the
+/// thirds.
+#[derive(Clone, Debug)]
+pub struct Radix3 {
+    /// Tables of the three length-`m` transforms.
+    pub(crate) sub: Twiddles,
+    /// `omega` and its inverse.
+    pub(crate) omega: MulConst,
+    pub(crate) omega_inv: MulConst,
+    /// `w^j`, `w^(2j)`, `w^(-j)` and `w^(-2j)` for `j < m`.
+    pub(crate) fwd1: Table,
+    pub(crate) fwd2: Table,
+    pub(crate) inv1: Table,
+    pub(crate) inv2: Table,
+}
+
+/// True for the lengths [`Twiddles::new`] takes: `2^k` and `3 * 2^k` (the
+/// latter from 3 on), within the primes' limit.
+pub fn supported_len(len: usize) -> bool {
+    let odd = len >> len.trailing_zeros();
+    len > 0 && (odd == 1 || odd == 3) && len as u64 <= primes::MAX_TRANSFORM_LEN
 }
 
 impl Twiddles {
-    /// Tables for transforms of length `len` (a power of two within the
-    /// prime's two-adicity) modulo `prime`.
+    /// Tables for transforms of length `len` (`2^k`, or `3 * 2^k`, within
+    /// the prime's limit) modulo `prime`.
     pub fn new(prime: &Prime50, len: usize) -> Self {
-        assert!(len.is_power_of_two());
+        assert!(supported_len(len), "transform length {len}");
         let m = prime.modulus;
+        if !len.is_power_of_two() {
+            return Twiddles::with_radix3(prime, len);
+        }
         let fwd = Table::new(len, &m, |n| prime.root_of_unity(n));
         let inv = Table::new(len, &m, |n| m.inv(prime.root_of_unity(n)));
         Twiddles {
@@ -234,6 +293,32 @@ impl Twiddles {
             modulus: m,
             fwd,
             inv,
+            three: None,
+        }
+    }
+
+    fn with_radix3(prime: &Prime50, len: usize) -> Self {
+        let m = prime.modulus;
+        let third = len / 3;
+        let w = prime.root_of_unity_any(len as u64);
+        let wi = m.inv(w);
+        let omega = m.pow(w, third as u64);
+        let three = Radix3 {
+            sub: Twiddles::new(prime, third),
+            omega: MulConst::new(omega, &m),
+            omega_inv: MulConst::new(m.inv(omega), &m),
+            fwd1: Table::powers(third, w, &m),
+            fwd2: Table::powers(third, m.mul(w, w), &m),
+            inv1: Table::powers(third, wi, &m),
+            inv2: Table::powers(third, m.mul(wi, wi), &m),
+        };
+        let empty = Table::powers(0, 1, &m);
+        Twiddles {
+            len,
+            modulus: m,
+            fwd: empty.clone(),
+            inv: empty,
+            three: Some(Box::new(three)),
         }
     }
 
@@ -257,6 +342,10 @@ impl Twiddles {
 /// Panics unless `a` holds `lanes` vectors of the tables' length: the
 /// vector paths rely on it before any load.
 pub(crate) fn check_shape(a: &[u64], lanes: usize, tw: &Twiddles) {
+    assert!(
+        tw.three.is_none(),
+        "a length of 3 * 2^k goes through Kernel::forward or Kernel::inverse"
+    );
     assert!(lanes >= 1, "at least one lane");
     assert_eq!(a.len(), tw.len * lanes, "buffer is not lanes * length");
 }
@@ -335,7 +424,10 @@ pub(crate) fn reduce_p(x: u64, m: &Modulus50) -> u64 {
 /// A kernel path. All paths compute the same functions over the same value
 /// ranges (see the module documentation); they differ in speed and in the
 /// lazy representative they leave, never in the value modulo `p`.
-#[derive(Clone, Copy, Debug, PartialEq, Eq, PartialOrd, Ord, Hash)]
+#[derive(
+    Clone, Copy, Debug, PartialEq, Eq, PartialOrd, Ord, Hash, serde::Serialize, serde::Deserialize,
+)]
+#[serde(rename_all = "lowercase")]
 pub enum Kernel {
     /// Portable 64-bit integer code.
     Scalar,
@@ -449,6 +541,14 @@ impl Kernel {
     /// Forward transform in place: `[0, 2p)` in natural order to `[0, 2p)`
     /// in bit-reversed order. Panics if the path is unsupported.
     pub fn forward(self, a: &mut [u64], tw: &Twiddles) {
+        if let Some(t3) = &tw.three {
+            assert_eq!(a.len(), tw.len, "buffer is not the transform's length");
+            self.radix3_forward(a, t3);
+            for part in a.chunks_exact_mut(t3.sub.len) {
+                self.forward(part, &t3.sub);
+            }
+            return;
+        }
         match self {
             Kernel::Scalar => scalar::forward(a, tw),
             #[cfg(target_arch = "x86_64")]
@@ -464,6 +564,14 @@ impl Kernel {
     /// `[0, 4p)` in natural order, times the length. Panics if the path is
     /// unsupported.
     pub fn inverse(self, a: &mut [u64], tw: &Twiddles) {
+        if let Some(t3) = &tw.three {
+            assert_eq!(a.len(), tw.len, "buffer is not the transform's length");
+            for part in a.chunks_exact_mut(t3.sub.len) {
+                self.inverse(part, &t3.sub);
+            }
+            self.radix3_inverse(a, t3);
+            return;
+        }
         match self {
             Kernel::Scalar => scalar::inverse(a, tw),
             #[cfg(target_arch = "x86_64")]
@@ -534,6 +642,51 @@ impl Kernel {
     }
 }
 
+impl Kernel {
+    /// The radix-3 step of a forward transform of length `3m` (`a` holds
+    /// all of it): `[0, 2p)` in, `[0, 2p)` out.
+    fn radix3_forward(self, a: &mut [u64], t: &Radix3) {
+        match self {
+            Kernel::Scalar => scalar::radix3_forward(a, t),
+            #[cfg(target_arch = "x86_64")]
+            Kernel::Avx2 => avx2::radix3_forward(a, t),
+            #[cfg(target_arch = "x86_64")]
+            Kernel::Ifma => ifma::radix3_forward(a, t),
+            #[cfg(not(target_arch = "x86_64"))]
+            _ => unsupported(self),
+        }
+    }
+
+    /// The radix-3 step of an inverse transform, after the three inverse
+    /// sub-transforms: `[0, 4p)` in, `[0, 4p)` out, times 3.
+    fn radix3_inverse(self, a: &mut [u64], t: &Radix3) {
+        match self {
+            Kernel::Scalar => scalar::radix3_inverse(a, t),
+            #[cfg(target_arch = "x86_64")]
+            Kernel::Avx2 => avx2::radix3_inverse(a, t),
+            #[cfg(target_arch = "x86_64")]
+            Kernel::Ifma => ifma::radix3_inverse(a, t),
+            #[cfg(not(target_arch = "x86_64"))]
+            _ => unsupported(self),
+        }
+    }
+
+    /// `a[i] = a[i] mod p` lazily, into `[0, 2p)`, for any 64-bit words:
+    /// operand limbs on their way into a forward transform. Panics if the
+    /// path is unsupported.
+    pub fn reduce_words(self, a: &mut [u64], m: &Modulus50) {
+        match self {
+            Kernel::Scalar => scalar::reduce_words(a, m),
+            #[cfg(target_arch = "x86_64")]
+            Kernel::Avx2 => avx2::reduce_words(a, m),
+            #[cfg(target_arch = "x86_64")]
+            Kernel::Ifma => ifma::reduce_words(a, m),
+            #[cfg(not(target_arch = "x86_64"))]
+            _ => unsupported(self),
+        }
+    }
+}
+
 /// The vector paths exist only on x86-64; a hand-built `Kernel` naming one
 /// elsewhere is a caller's error.
 #[cfg(not(target_arch = "x86_64"))]
@@ -558,6 +711,8 @@ pub type TransformFn = fn(&mut [u64], &Twiddles);
 pub type LanesFn = fn(&mut [u64], usize, &Twiddles);
 /// The type of every path's `pointwise`.
 pub type PointwiseFn = fn(&mut [u64], &[u64], u64, &Modulus50);
+/// The type of every path's `reduce_words`.
+pub type ReduceWordsFn = fn(&mut [u64], &Modulus50);
 /// The type of every path's `twiddle_powers`.
 pub type TwiddlePowersFn = fn(&mut [u64], u64, &Modulus50);
 
@@ -589,6 +744,9 @@ const _: [TwiddlePowersFn; 3] = [
     avx2::twiddle_powers,
     ifma::twiddle_powers,
 ];
+
+#[cfg(target_arch = "x86_64")]
+const _: [ReduceWordsFn; 3] = [scalar::reduce_words, avx2::reduce_words, ifma::reduce_words];
 
 #[cfg(test)]
 mod tests;

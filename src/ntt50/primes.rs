@@ -69,6 +69,14 @@ impl Prime50 {
         }
     }
 
+    /// A primitive `n`-th root of unity for any `n` dividing `p - 1`:
+    /// `g^((p-1)/n)` with `g` the generator, so that the roots of all
+    /// lengths are powers of one another (`root(n)^k = root(n / k)`).
+    pub const fn root_of_unity_any(&self, n: u64) -> u64 {
+        assert!(n > 0 && (self.modulus.p - 1).is_multiple_of(n));
+        self.modulus.pow(self.generator, (self.modulus.p - 1) / n)
+    }
+
     /// A primitive `n`-th root of unity, `n` a power of two up to
     /// `2^two_adicity`.
     pub const fn root_of_unity(&self, n: u64) -> u64 {

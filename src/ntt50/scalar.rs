@@ -6,8 +6,8 @@
 //! may leave other representatives in the same ranges.
 
 use super::{
-    check_shape, montgomery_scale, quarters, reduce_p, Modulus50, PowerChain, Table, Twiddles,
-    MASK52,
+    check_shape, montgomery_scale, quarters, reduce_p, Modulus50, MulConst, PowerChain, Radix3,
+    Table, Twiddles, MASK52,
 };
 
 /// `x * w mod p` in `[0, 2p)` for `x < 2^52`, given `q = shoup52(w)`.
@@ -113,6 +113,92 @@ pub fn pointwise(a: &mut [u64], b: &[u64], scale: u64, m: &Modulus50) {
     for (x, &y) in a.iter_mut().zip(b) {
         *x = mul_shoup(mul_montgomery(*x, y, m), s.w, s.q, m);
     }
+}
+
+/// `2^32 mod p` with its Shoup quotient: a word `h 2^32 + l` is congruent
+/// to `h (2^32 mod p) + l`, a product of two values below 2^52 plus a value
+/// below `p`, which is how every path reduces a whole word.
+pub(crate) fn word_split(m: &Modulus50) -> super::MulConst {
+    super::MulConst::new((1u64 << 32) % m.p, m)
+}
+
+/// `a[i] = a[i] mod p` lazily, into `[0, 2p)`, for any 64-bit words.
+pub fn reduce_words(a: &mut [u64], m: &Modulus50) {
+    let c = word_split(m);
+    for x in a.iter_mut() {
+        // below 2p + 2^32 < 3p
+        let r = mul_shoup(*x >> 32, c.w, c.q, m) + (*x & 0xffff_ffff);
+        *x = if r >= m.two_p { r - m.two_p } else { r };
+    }
+}
+
+/// `[0, 4p)` to `[0, 2p)`.
+#[inline(always)]
+fn reduce_2p(x: u64, m: &Modulus50) -> u64 {
+    if x >= m.two_p {
+        x - m.two_p
+    } else {
+        x
+    }
+}
+
+/// The radix-3 sums of [`Radix3`] with cube root `omega`: `a, b, c` in
+/// `[0, 2p)` to `a + b + c` in `[0, 2p)`, `(a - c) + omega (b - c)` in
+/// `[0, 4p)` and `(a - b) - omega (b - c)` in `(0, 4p)`.
+#[inline(always)]
+pub(crate) fn radix3_sums(a: u64, b: u64, c: u64, omega: MulConst, m: &Modulus50) -> [u64; 3] {
+    let y0 = reduce_2p(reduce_2p(a + b, m) + c, m);
+    let t = mul_shoup(b + m.two_p - c, omega.w, omega.q, m);
+    let e1 = reduce_2p(a + m.two_p - c, m);
+    let e2 = reduce_2p(a + m.two_p - b, m);
+    [y0, e1 + t, e2 + m.two_p - t]
+}
+
+/// The thirds of a buffer of length `3m`.
+pub(crate) fn thirds(a: &mut [u64]) -> [&mut [u64]; 3] {
+    let third = a.len() / 3;
+    let (x, rest) = a.split_at_mut(third);
+    let (y, z) = rest.split_at_mut(third);
+    [x, y, z]
+}
+
+/// The forward radix-3 step for positions `from..` of the thirds (all of
+/// them on this path; the vector paths hand it their tails).
+pub(crate) fn radix3_forward_from(a: &mut [u64], t: &Radix3, from: usize) {
+    let m = t.sub.modulus();
+    let [x, y, z] = thirds(a);
+    for j in from..x.len() {
+        let [s0, s1, s2] = radix3_sums(x[j], y[j], z[j], t.omega, m);
+        x[j] = s0;
+        y[j] = mul_shoup(s1, t.fwd1.w[j], t.fwd1.q[j], m);
+        z[j] = mul_shoup(s2, t.fwd2.w[j], t.fwd2.q[j], m);
+    }
+}
+
+/// The inverse radix-3 step for positions `from..` of the thirds.
+pub(crate) fn radix3_inverse_from(a: &mut [u64], t: &Radix3, from: usize) {
+    let m = t.sub.modulus();
+    let [x, y, z] = thirds(a);
+    for j in from..x.len() {
+        let z0 = reduce_2p(x[j], m);
+        let z1 = mul_shoup(y[j], t.inv1.w[j], t.inv1.q[j], m);
+        let z2 = mul_shoup(z[j], t.inv2.w[j], t.inv2.q[j], m);
+        [x[j], y[j], z[j]] = radix3_sums(z0, z1, z2, t.omega_inv, m);
+    }
+}
+
+/// The radix-3 step of a forward transform of length `3m`: `[0, 2p)` in
+/// and out.
+pub fn radix3_forward(a: &mut [u64], t: &Radix3) {
+    assert_eq!(a.len(), 3 * t.sub.len(), "buffer is not 3m long");
+    radix3_forward_from(a, t, 0);
+}
+
+/// The radix-3 step of an inverse transform of length `3m`, after its
+/// sub-transforms: `[0, 4p)` in and out, times 3.
+pub fn radix3_inverse(a: &mut [u64], t: &Radix3) {
+    assert_eq!(a.len(), 3 * t.sub.len(), "buffer is not 3m long");
+    radix3_inverse_from(a, t, 0);
 }
 
 /// Independent power chains in [`twiddle_powers`]: enough that the

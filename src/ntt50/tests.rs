@@ -546,3 +546,136 @@ fn twiddle_powers_of_three_by_hand() {
         assert_eq!(got, [1, 3, 9, 27, 81], "{k:?}");
     }
 }
+
+/// `k`'s word reduction against `%`: every length up to 40 (partial
+/// vectors), words across the whole 64-bit range with the edges (0, `p`,
+/// `2p`, `2^32`, `2^64 - 1` and their neighbours), guard words around.
+fn reduce_words_match_remainder(k: Kernel) {
+    for (pi, pr) in PRIMES.iter().enumerate() {
+        let p = pr.modulus.p;
+        let edges = [
+            0,
+            1,
+            p - 1,
+            p,
+            p + 1,
+            2 * p - 1,
+            2 * p,
+            4 * p - 1,
+            (1 << 32) - 1,
+            1 << 32,
+            (1 << 52) - 1,
+            u64::MAX - 1,
+            u64::MAX,
+            u64::MAX / p * p,
+            (u64::MAX / p - 1) * p - 1,
+        ];
+        for len in (0..=40).chain([1000, 4099]) {
+            let mut x = seeded_words(len, (pi * 1000 + len) as u64);
+            for (i, v) in x.iter_mut().enumerate().step_by(3) {
+                *v = edges[i % edges.len()];
+            }
+            let mut g = Guarded::new(&x);
+            k.reduce_words(g.data(), &pr.modulus);
+            for (j, (got, want)) in g.finish().iter().zip(&x).enumerate() {
+                let what = format!("{k:?} p{pi} len={len} j={j} x={want}");
+                assert!(*got < 2 * p, "{what}: {got} out of range");
+                assert_eq!(got % p, want % p, "{what}");
+            }
+        }
+    }
+}
+
+#[test]
+fn scalar_reduce_words_match_remainder() {
+    reduce_words_match_remainder(Kernel::Scalar);
+}
+
+#[test]
+fn avx2_reduce_words_match_remainder() {
+    if !skip(Kernel::Avx2) {
+        reduce_words_match_remainder(Kernel::Avx2);
+    }
+}
+
+#[test]
+fn ifma_reduce_words_match_remainder() {
+    if !skip(Kernel::Ifma) {
+        reduce_words_match_remainder(Kernel::Ifma);
+    }
+}
+
+/// `k`'s transforms of length `3 * 2^j` against the naive DFT with the
+/// generator's root: the forward output holds `X[3i + r]` at
+/// `r * m + bitrev(i)`; the inverse of that layout gives `3m` times the
+/// input (also from the edges of the input ranges), with guard words.
+fn radix3_transforms_match_naive_dft(k: Kernel) {
+    for (pi, pr) in PRIMES.iter().enumerate() {
+        let (md, p) = (pr.modulus, pr.modulus.p);
+        let max_log = if pi == 0 { 9 } else { 6 };
+        for log in 0..=max_log {
+            let m = 1usize << log;
+            let n = 3 * m;
+            let tw = Twiddles::new(pr, n);
+            let w = pr.root_of_unity_any(n as u64);
+            for (case, input) in inputs(n, 2 * p, 30 + log as u64).iter().enumerate() {
+                let what = format!("{k:?} p{pi} n={n} case {case}");
+                let reduced: Vec<u64> = input.iter().map(|x| x % p).collect();
+                let expect = naive_dft(&reduced, w, p);
+                let got = run_forward(k, input, 0, &tw);
+                for r in 0..3 {
+                    for i in 0..m {
+                        let x = got[r * m + bit_reverse(i, log)];
+                        assert!(x < 2 * p, "{what}: {x} out of range");
+                        assert_eq!(x % p, expect[3 * i + r], "{what}: X[{}]", 3 * i + r);
+                    }
+                }
+                let back = run_inverse(k, &got, 0, &tw);
+                let n_mod = n as u64 % p;
+                for (j, (x, y)) in back.iter().zip(&reduced).enumerate() {
+                    assert!(*x < 4 * p, "{what}: inverse out of range at {j}");
+                    assert_eq!(x % p, md.mul(*y, n_mod), "{what}: inverse at {j}");
+                }
+            }
+            // The inverse over the top of its input range.
+            for (case, input) in inputs(n, 4 * p, 40 + log as u64).iter().enumerate() {
+                let what = format!("{k:?} p{pi} n={n} inverse case {case}");
+                let got = run_inverse(k, input, 0, &tw);
+                let scalar = run_inverse(Kernel::Scalar, input, 0, &tw);
+                for (j, (x, y)) in got.iter().zip(&scalar).enumerate() {
+                    assert!(*x < 4 * p, "{what}: out of range at {j}");
+                    assert_eq!(x % p, y % p, "{what}: against scalar at {j}");
+                }
+            }
+        }
+    }
+}
+
+#[test]
+fn scalar_radix3_transforms_match_naive_dft() {
+    radix3_transforms_match_naive_dft(Kernel::Scalar);
+}
+
+#[test]
+fn avx2_radix3_transforms_match_naive_dft() {
+    if !skip(Kernel::Avx2) {
+        radix3_transforms_match_naive_dft(Kernel::Avx2);
+    }
+}
+
+#[test]
+fn ifma_radix3_transforms_match_naive_dft() {
+    if !skip(Kernel::Ifma) {
+        radix3_transforms_match_naive_dft(Kernel::Ifma);
+    }
+}
+
+/// The paths' own functions take only powers of two: a table of length
+/// `3 * 2^k` handed to them is refused, not misread.
+#[test]
+#[should_panic(expected = "Kernel::forward")]
+fn lanes_refuse_a_radix3_table() {
+    let tw = Twiddles::new(&PRIMES[0], 48);
+    let mut a = vec![0u64; 48 * 2];
+    Kernel::Scalar.forward_lanes(&mut a, 2, &tw);
+}
