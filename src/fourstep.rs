@@ -393,10 +393,10 @@ impl FourStep {
                     crt: Combiner::Wide(Crt::new([scale[0], scale[1], scale[2]])),
                 }
             }
-            PrimeSet::Four50(kernel) => FourStep {
+            PrimeSet::Four50(kernel) | PrimeSet::Three50(kernel) => FourStep {
                 shape,
                 set,
-                tables: n50::primes::PRIMES
+                tables: n50::primes::PRIMES[..set.count()]
                     .iter()
                     .map(|p| PrimeArith::Narrow(Box::new(NarrowTables::new(p, shape, kernel))))
                     .collect(),
@@ -627,8 +627,7 @@ impl FourStep {
             Combiner::Narrow(crt, kernel) => {
                 // Residues of a product are below 2^52 and combine to less
                 // than 2^192; corrupted ones need not, and must be caught.
-                let r = [tmp[0], tmp[1], tmp[2], tmp[3]];
-                if !crt.coefficients_checked(*kernel, r, out) {
+                if !crt.coefficients_checked(*kernel, tmp, out) {
                     return Err(Error::verify(
                         format!(
                             "transform consistency: a residue among coefficients {first}..{} \

@@ -485,7 +485,8 @@ fn open_state(
 fn same_plan_up_to_kernel(old: &Plan, new: &Plan) -> bool {
     use crate::primeset::PrimeSet;
     match (old.prime_set, new.prime_set) {
-        (PrimeSet::Four50(_), PrimeSet::Four50(_)) => {
+        (PrimeSet::Four50(_), PrimeSet::Four50(_))
+        | (PrimeSet::Three50(_), PrimeSet::Three50(_)) => {
             let mut o = old.clone();
             o.prime_set = new.prime_set;
             o == *new

@@ -277,14 +277,15 @@ pub fn plan(req: &Request) -> Result<Plan> {
     }
     let coefficients = la + lb - 1;
     let short = la.min(lb);
-    // The four primes below 2^50 stop at 2^32 points; longer transforms
-    // take the three primes below 2^62 (up to 2^40).
+    // The primes below 2^50 stop at 2^32 points; longer transforms take the
+    // three primes below 2^62 (up to 2^40). Within the 50-bit family, three
+    // primes where they are exact for the shorter operand, else four.
     let req = &Request {
         primes: if shape_for(coefficients, req.primes).len() as u64 > req.primes.max_transform_len()
         {
             PrimeSet::Three62
         } else {
-            req.primes
+            req.primes.fitted(short as u64, req.radix)
         },
         ..*req
     };
@@ -676,25 +677,36 @@ mod tests {
                 shape_for(min_len, PrimeSet::Three62)
             );
         }
-        let mut r = req(1 << 20, 1 << 20);
+        // 2^22 limbs (2^28 bits) are past three 50-bit primes' bound.
+        let n = 1u64 << 23;
+        let mut r = req(1 << 22, 1 << 22);
         r.primes = four;
         let p4 = plan(&r).unwrap();
         r.primes = PrimeSet::Three62;
         let p3 = plan(&r).unwrap();
         assert_eq!((p4.prime_set, p4.primes.len()), (four, 4));
         assert_eq!((p3.prime_set, p3.primes.len()), (PrimeSet::Three62, 3));
-        // One more residue store of 2^21 words in RAM.
-        assert_eq!(p4.ram_bytes - p3.ram_bytes, 8 << 21);
+        // One more residue store of 2^23 words in RAM.
+        assert_eq!(p4.ram_bytes - p3.ram_bytes, 8 * n);
         assert_eq!(p4.passes[0].name, "columns of A, four primes");
         assert_eq!(p4.passes.len(), p3.passes.len() + 3);
         // Out of core, one more residue store of scratch.
-        r.memory = 32 << 20;
+        r.memory = 64 << 20;
         r.primes = four;
         let o4 = plan(&r).unwrap();
         r.primes = PrimeSet::Three62;
         let o3 = plan(&r).unwrap();
         assert!(matches!(o4.algorithm, Algorithm::OutOfCore { .. }));
-        assert_eq!(o4.scratch_bytes - o3.scratch_bytes, 8 << 21);
+        assert_eq!(o4.scratch_bytes - o3.scratch_bytes, 8 * n);
+        // One limb fewer in the shorter operand and three primes suffice:
+        // the same stores as the 62-bit set, on the same shape.
+        let mut r = req(1 << 22, 4_192_768);
+        r.primes = four;
+        let t = plan(&r).unwrap();
+        assert_eq!(t.prime_set, PrimeSet::Three50(crate::ntt50::Kernel::Scalar));
+        assert_eq!(t.primes, four.primes()[..3]);
+        r.primes = PrimeSet::Three62;
+        assert_eq!(plan(&r).unwrap().ram_bytes, t.ram_bytes);
     }
 
     /// Past the four primes' 2^32 points the plan takes the three primes

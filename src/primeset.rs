@@ -12,6 +12,11 @@
 //!   about 2^71, far beyond the 2^32-point limit of these primes
 //!   ([`crate::ntt50::primes::coefficient_bound_holds`] checks it exactly,
 //!   and a compile-time assertion below checks it at that limit).
+//! - [`PrimeSet::Three50`]: the first three of those primes (product about
+//!   2^149.9995), exact while the shorter operand has at most 4_192_768
+//!   limbs in base 2^64 or 14_267_250 in base 10^19
+//!   ([`crate::ntt50::primes::bound_holds_for_first`]). The planner takes
+//!   it whenever the bound holds: a quarter less transform work and memory.
 //!
 //! The vector paths make a butterfly three to five times cheaper than the
 //! 62-bit scalar one, more than paying for the fourth prime; the 50-bit
@@ -39,6 +44,9 @@ pub enum PrimeSet {
     Three62,
     /// Four primes below 2^50 with the given kernel path.
     Four50(Kernel),
+    /// The first three of the four primes below 2^50, for products whose
+    /// coefficients they hold exactly.
+    Three50(Kernel),
 }
 
 // Exactness of the four-prime set at its longest transform, for both radixes
@@ -56,14 +64,35 @@ pub struct PrimeSetChoiceError(pub String);
 impl PrimeSet {
     /// Every set this CPU can run, for tests that cover them all.
     pub fn all_supported() -> Vec<PrimeSet> {
+        let kernels = Kernel::ALL.into_iter().filter(|k| k.is_supported());
         std::iter::once(PrimeSet::Three62)
-            .chain(
-                Kernel::ALL
-                    .into_iter()
-                    .filter(|k| k.is_supported())
-                    .map(PrimeSet::Four50),
-            )
+            .chain(kernels.flat_map(|k| [PrimeSet::Four50(k), PrimeSet::Three50(k)]))
             .collect()
+    }
+
+    /// The set a product with `terms` limb products per coefficient (the
+    /// shorter operand's length) in `radix` takes from this family: three
+    /// of the 50-bit primes where they are exact, else four; the 62-bit set
+    /// is its own family.
+    pub fn fitted(self, terms: u64, radix: Radix) -> PrimeSet {
+        match self {
+            PrimeSet::Three62 => PrimeSet::Three62,
+            PrimeSet::Four50(k) | PrimeSet::Three50(k) => {
+                if PrimeSet::Three50(k).exact_for(terms, radix) {
+                    PrimeSet::Three50(k)
+                } else {
+                    PrimeSet::Four50(k)
+                }
+            }
+        }
+    }
+
+    /// The kernel path of a 50-bit set (`None` for the 62-bit one).
+    pub fn kernel(self) -> Option<Kernel> {
+        match self {
+            PrimeSet::Three62 => None,
+            PrimeSet::Four50(k) | PrimeSet::Three50(k) => Some(k),
+        }
     }
 
     /// The fastest set on this CPU: four primes with a vector path when
@@ -109,6 +138,7 @@ impl PrimeSet {
         match self {
             PrimeSet::Three62 => crate::arith::primes::PRIME_COUNT,
             PrimeSet::Four50(_) => ntt50::primes::PRIMES.len(),
+            PrimeSet::Three50(_) => 3,
         }
     }
 
@@ -119,7 +149,10 @@ impl PrimeSet {
                 .iter()
                 .map(|p| p.modulus.p)
                 .collect(),
-            PrimeSet::Four50(_) => ntt50::primes::PRIMES.iter().map(|p| p.modulus.p).collect(),
+            PrimeSet::Four50(_) | PrimeSet::Three50(_) => ntt50::primes::PRIMES[..self.count()]
+                .iter()
+                .map(|p| p.modulus.p)
+                .collect(),
         }
     }
 
@@ -127,7 +160,7 @@ impl PrimeSet {
     pub fn max_transform_len(self) -> u64 {
         match self {
             PrimeSet::Three62 => crate::arith::primes::MAX_TRANSFORM_LEN,
-            PrimeSet::Four50(_) => ntt50::primes::MAX_TRANSFORM_LEN,
+            PrimeSet::Four50(_) | PrimeSet::Three50(_) => ntt50::primes::MAX_TRANSFORM_LEN,
         }
     }
 
@@ -138,7 +171,7 @@ impl PrimeSet {
         len as u64 <= self.max_transform_len()
             && match self {
                 PrimeSet::Three62 => crate::ntt::supported_len(len),
-                PrimeSet::Four50(_) => ntt50::supported_len(len),
+                PrimeSet::Four50(_) | PrimeSet::Three50(_) => ntt50::supported_len(len),
             }
     }
 
@@ -149,8 +182,8 @@ impl PrimeSet {
             PrimeSet::Three62 => {
                 crate::arith::primes::coefficient_bound_holds(terms, radix.max_limb())
             }
-            PrimeSet::Four50(_) => {
-                ntt50::primes::coefficient_bound_holds(terms as u128, radix.max_limb())
+            PrimeSet::Four50(_) | PrimeSet::Three50(_) => {
+                ntt50::primes::bound_holds_for_first(self.count(), terms as u128, radix.max_limb())
             }
         }
     }
@@ -159,7 +192,7 @@ impl PrimeSet {
     pub fn name(self) -> &'static str {
         match self {
             PrimeSet::Three62 => "wide",
-            PrimeSet::Four50(k) => k.name(),
+            PrimeSet::Four50(k) | PrimeSet::Three50(k) => k.name(),
         }
     }
 
@@ -168,6 +201,7 @@ impl PrimeSet {
         match self {
             PrimeSet::Three62 => "3 primes below 2^62, scalar kernels".into(),
             PrimeSet::Four50(k) => format!("4 primes below 2^50, {} kernels", k.name()),
+            PrimeSet::Three50(k) => format!("3 primes below 2^50, {} kernels", k.name()),
         }
     }
 }
@@ -213,5 +247,27 @@ mod tests {
         assert_eq!(json, r#"{"set":"four50","kernel":"ifma"}"#);
         let back: PrimeSet = serde_json::from_str(&json).unwrap();
         assert_eq!(back, PrimeSet::Four50(Kernel::Ifma));
+    }
+
+    /// Three of the 50-bit primes exactly where their bound holds: up to
+    /// 4_192_768 binary and 14_267_250 decimal limbs in the shorter operand.
+    #[test]
+    fn three_primes_are_fitted_up_to_their_bound() {
+        let four = PrimeSet::Four50(Kernel::Scalar);
+        let three = PrimeSet::Three50(Kernel::Scalar);
+        assert_eq!(three.count(), 3);
+        assert_eq!(three.primes(), four.primes()[..3]);
+        for (limit, radix) in [(4_192_768, Radix::Binary), (14_267_250, Radix::Decimal)] {
+            assert_eq!(four.fitted(1, radix), three);
+            assert_eq!(four.fitted(limit, radix), three);
+            assert_eq!(three.fitted(limit + 1, radix), four);
+            assert_eq!(four.fitted(limit + 1, radix), four);
+        }
+        // 2^28-bit operands (2^22 limbs) just miss it.
+        assert_eq!(four.fitted(1 << 22, Radix::Binary), four);
+        assert_eq!(
+            PrimeSet::Three62.fitted(1, Radix::Binary),
+            PrimeSet::Three62
+        );
     }
 }

@@ -899,3 +899,35 @@ fn plans_follow_the_forced_kernel() {
     assert_eq!(p.primes, want.primes());
     eprintln!("plans_follow_the_forced_kernel: {want:?}");
 }
+
+/// Three 50-bit primes hold coefficients up to 4_192_768 terms of maximal
+/// binary limbs, and the planner takes them up to exactly there: the
+/// square of `B^n - 1` for that `n` has the largest coefficients three
+/// primes may ever carry (`n (B - 1)^2`, within 2^-0.0005 of their
+/// product), and must equal `B^2n - 2 B^n + 1` limb for limb. One limb
+/// more and the plan takes four primes.
+#[test]
+fn three_fifty_bit_primes_are_exact_up_to_their_bound() {
+    use vastmul::ntt50::primes::MAX_EXACT_TERMS_THREE;
+    let Some(kernel) = PrimeSet::detect().kernel() else {
+        println!("skipped: no vector kernel here; the scalar path is covered by the kernel script");
+        return;
+    };
+    let n = MAX_EXACT_TERMS_THREE as usize;
+    let a = radix_power_minus_one(n, Radix::Binary);
+    let mut r = Request::in_memory(n, n, Radix::Binary, false, 2, Force::Ntt);
+    r.primes = PrimeSet::Four50(kernel);
+    assert_eq!(plan(&r).unwrap().prime_set, PrimeSet::Three50(kernel));
+    let mut r1 = Request::in_memory(n + 1, n + 1, Radix::Binary, false, 2, Force::Ntt);
+    r1.primes = PrimeSet::Three50(kernel);
+    assert_eq!(plan(&r1).unwrap().prime_set, PrimeSet::Four50(kernel));
+    let got =
+        vastmul::engine::multiply_on(&a, &a, Radix::Binary, Force::Ntt, PrimeSet::Three50(kernel));
+    // (B^n - 1)^2 = 1, then n - 1 zero limbs, B - 2, then n - 1 maximal limbs.
+    assert_eq!(got.len(), 2 * n);
+    assert_eq!(got[0], 1);
+    assert!(got[1..n].iter().all(|&x| x == 0), "zero run");
+    assert_eq!(got[n], u64::MAX - 1);
+    assert!(got[n + 1..].iter().all(|&x| x == u64::MAX), "maximal run");
+    Fingerprint::new(8).assert_product(&got, &a, &a, Radix::Binary, "three-prime bound");
+}

@@ -165,21 +165,30 @@ impl Crt50 {
     /// The coefficients with residues `residues[i][k]`, as
     /// [`Crt50::coefficients`], the mixed-radix digits computed by `kernel`
     /// (the IFMA path vectorises them; the others use the scalar digits).
-    /// Residues are taken modulo 2^52. Returns false, with `out` filled
-    /// anyway, when any residue had bits above 52 or any value reached
-    /// 2^192: residues that no product leaves, so corrupted data. Never
-    /// panics on such data.
+    /// Residues are taken modulo 2^52.
+    ///
+    /// With three residue slices the values are those below the product of
+    /// the first three primes: Garner's first three digits depend on the
+    /// first three residues alone, and the fourth digit is zero (the fourth
+    /// residue slot is filled with a copy and its digit dropped).
+    ///
+    /// Returns false, with `out` filled anyway, when any residue had bits
+    /// above 52 or any value reached 2^192: residues that no product
+    /// leaves, so corrupted data. Never panics on such data.
     pub fn coefficients_checked(
         &self,
         kernel: super::Kernel,
-        residues: [&[u64]; K],
+        residues: &[&[u64]],
         out: &mut [[u64; 3]],
     ) -> bool {
         let n = out.len();
         assert!(
-            residues.iter().all(|r| r.len() == n),
-            "residue slices and output differ in length"
+            (3..=K).contains(&residues.len()) && residues.iter().all(|r| r.len() == n),
+            "three or four residue slices of the output's length"
         );
+        let three = residues.len() == 3;
+        let fourth = if three { residues[2] } else { residues[3] };
+        let residues: [&[u64]; K] = [residues[0], residues[1], residues[2], fourth];
         let mut bad = 0u64;
         let mut r = [[0u64; DIGIT_BLOCK]; K];
         let mut y = [[0u64; DIGIT_BLOCK]; K];
@@ -192,6 +201,9 @@ impl Crt50 {
                 }
             }
             self.digits_block(kernel, &r, &mut y, len);
+            if three {
+                y[3][..len].fill(0);
+            }
             for (k, o) in out[first..first + len].iter_mut().enumerate() {
                 let [w0, w1, w2, w3] = self.value_of_digits([y[0][k], y[1][k], y[2][k], y[3][k]]);
                 bad |= w3 << 52;
@@ -500,7 +512,7 @@ mod tests {
                     &cols[3][..len],
                 ];
                 assert!(
-                    crt.coefficients_checked(kernel, r, &mut out),
+                    crt.coefficients_checked(kernel, &r, &mut out),
                     "{kernel:?} {len}"
                 );
                 for (k, o) in out.iter().enumerate() {
@@ -514,7 +526,7 @@ mod tests {
                 let r = [&bad[0][..], &bad[1][..], &bad[2][..], &bad[3][..]];
                 let mut out = vec![[0u64; 3]; values.len()];
                 assert!(
-                    !crt.coefficients_checked(kernel, r, &mut out),
+                    !crt.coefficients_checked(kernel, &r, &mut out),
                     "{kernel:?} bit at {at}"
                 );
             }
@@ -524,9 +536,48 @@ mod tests {
             let r = [&r1[0..1], &r1[1..2], &r1[2..3], &r1[3..4]];
             let mut out = vec![[0u64; 3]; 1];
             assert!(
-                !crt.coefficients_checked(kernel, r, &mut out),
+                !crt.coefficients_checked(kernel, &r, &mut out),
                 "{kernel:?} 2^192"
             );
+        }
+    }
+
+    /// Three residues: every value below the product of the first three
+    /// primes (its neighbours at each partial product, the largest
+    /// coefficient three primes may hold, `P_3 - 1`, and seeded values) comes
+    /// back exactly on every path, from residues lifted anywhere in
+    /// `[0, 4p)`.
+    #[test]
+    fn three_residues_recover_values_below_three_primes() {
+        use crate::ntt50::primes::{product_of_first, MAX_EXACT_TERMS_THREE};
+        let p3 = big(&product_of_first(3));
+        let one = BigUint::from(1u32);
+        let max_limb_sq = BigUint::from(u64::MAX) * BigUint::from(u64::MAX);
+        let mut values = vec![
+            BigUint::from(0u32),
+            one.clone(),
+            &p3 - &one,
+            &p3 - BigUint::from(2u32),
+            &max_limb_sq * BigUint::from(MAX_EXACT_TERMS_THREE as u64),
+            BigUint::from(PRIMES[0].modulus.p),
+            BigUint::from(PRIMES[0].modulus.p) * BigUint::from(PRIMES[1].modulus.p) - &one,
+        ];
+        values.extend(random_values(500, 93).into_iter().map(|v| v % &p3));
+        let scale = [3 << 20; K];
+        let crt = Crt50::new(scale);
+        let res: Vec<[u64; K]> = values
+            .iter()
+            .enumerate()
+            .map(|(k, v)| scaled_residues(v, scale, [(k % 4) as u64; K]))
+            .collect();
+        let cols: Vec<Vec<u64>> = (0..3).map(|i| res.iter().map(|r| r[i]).collect()).collect();
+        for kernel in Kernel::ALL.into_iter().filter(|k| k.is_supported()) {
+            let r: Vec<&[u64]> = cols.iter().map(|c| &c[..]).collect();
+            let mut out = vec![[0u64; 3]; values.len()];
+            assert!(crt.coefficients_checked(kernel, &r, &mut out), "{kernel:?}");
+            for (k, o) in out.iter().enumerate() {
+                assert_eq!(big(o), values[k], "{kernel:?} value {k}");
+            }
         }
     }
 }

@@ -23,6 +23,12 @@
 //! to 2^32 limbs). [`coefficient_bound_holds`] checks the inequality with
 //! exact integer arithmetic; compile-time assertions check it at the
 //! largest accepted length and at every 64-bit term count.
+//!
+//! The first three primes alone (product `P_3` about 2^149.9995) are exact
+//! for up to [`MAX_EXACT_TERMS_THREE`] terms of base-2^64 limbs (just below
+//! 2^22) and 14_267_250 terms of base-10^19 limbs: the planner uses three
+//! when the shorter operand allows it, which saves a quarter of the
+//! transforms and of the memory ([`bound_holds_for_first`]).
 
 use super::Modulus50;
 
@@ -129,19 +135,37 @@ const fn less_than(a: [u64; 4], b: [u64; 4]) -> bool {
 
 /// `P`, the product of the four primes, as little-endian 64-bit words.
 pub const fn prime_product() -> [u64; 4] {
+    product_of_first(PRIMES.len())
+}
+
+/// The product of the first `count` primes, as little-endian 64-bit words.
+pub const fn product_of_first(count: usize) -> [u64; 4] {
+    assert!(count <= PRIMES.len());
     let mut acc = [1u64, 0, 0, 0];
     let mut i = 0;
-    while i < PRIMES.len() {
+    while i < count {
         acc = mul_word(acc, PRIMES[i].modulus.p);
         i += 1;
     }
     acc
 }
 
+/// The largest number of terms per coefficient for which a convolution of
+/// base-2^64 limbs is exact modulo the first three primes alone:
+/// `floor((P_3 - 1) / (2^64 - 1)^2)`, just below 2^22 (`P_3` is about
+/// 2^149.9995). For base-10^19 limbs the limit is 14_267_250 terms.
+pub const MAX_EXACT_TERMS_THREE: u128 = 4_192_768;
+
 /// True when `terms * max_limb^2 < P`: a convolution with at most `terms`
 /// products per coefficient of limbs up to `max_limb` is exact after the
 /// CRT. `terms` must be below 2^128.
 pub const fn coefficient_bound_holds(terms: u128, max_limb: u64) -> bool {
+    bound_holds_for_first(PRIMES.len(), terms, max_limb)
+}
+
+/// [`coefficient_bound_holds`] for the product of the first `count` primes:
+/// a convolution whose coefficients need only `count` residues.
+pub const fn bound_holds_for_first(count: usize, terms: u128, max_limb: u64) -> bool {
     let sq = max_limb as u128 * max_limb as u128;
     let sq_words = [sq as u64, (sq >> 64) as u64, 0, 0];
     // terms * sq, split into terms' two words so each step multiplies by one
@@ -149,8 +173,25 @@ pub const fn coefficient_bound_holds(terms: u128, max_limb: u64) -> bool {
     let hi = mul_word(sq_words, (terms >> 64) as u64);
     let hi_shifted = [0, hi[0], hi[1], hi[2]];
     assert!(hi[3] == 0, "256-bit overflow");
-    less_than(add_words(lo, hi_shifted), prime_product())
+    less_than(add_words(lo, hi_shifted), product_of_first(count))
 }
+
+const _: () = assert!(bound_holds_for_first(3, MAX_EXACT_TERMS_THREE, u64::MAX));
+const _: () = assert!(!bound_holds_for_first(
+    3,
+    MAX_EXACT_TERMS_THREE + 1,
+    u64::MAX
+));
+const _: () = assert!(bound_holds_for_first(
+    3,
+    14_267_250,
+    9_999_999_999_999_999_999
+));
+const _: () = assert!(!bound_holds_for_first(
+    3,
+    14_267_251,
+    9_999_999_999_999_999_999
+));
 
 const _: () = assert!(coefficient_bound_holds(MAX_TRANSFORM_LEN as u128, u64::MAX));
 const _: () = assert!(coefficient_bound_holds(u64::MAX as u128, u64::MAX));
