@@ -87,6 +87,9 @@ impl Display {
     fn stop_now(&mut self) {
         self.stop.store(true, Ordering::Relaxed);
         if let Some(t) = self.thread.take() {
+            // Wakes the thread from its wait at once: a short run must not
+            // pay for the rest of a tick on its way out.
+            t.thread().unpark();
             let _ = t.join();
         }
         METER.attach(false);
@@ -144,7 +147,8 @@ fn bars(stop: &AtomicBool) {
         } else if shown {
             pass.set_message("");
         }
-        std::thread::sleep(TICK);
+        // Woken early by `stop_now`.
+        std::thread::park_timeout(TICK);
     }
     pass.finish_and_clear();
     if let Some(bar) = overall {
@@ -174,7 +178,8 @@ fn lines(stop: &AtomicBool, every: Duration) {
                 eprintln!("{} vastmul: {line}", utc_now());
             }
         }
-        std::thread::sleep(TICK.min(every));
+        // Woken early by `stop_now`.
+        std::thread::park_timeout(TICK.min(every));
     }
 }
 
