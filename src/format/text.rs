@@ -442,14 +442,28 @@ pub(crate) fn put18(out: &mut [u8], x: u64) {
     put8(&mut out[10..], rest % 100_000_000);
 }
 
-const HEX_LOWER: &[u8; 16] = b"0123456789abcdef";
-
 /// Writes `x` as exactly sixteen lowercase hexadecimal digits.
 #[inline]
 pub(crate) fn put16_hex(out: &mut [u8], x: u64) {
-    for (k, o) in out[..16].iter_mut().enumerate() {
-        *o = HEX_LOWER[((x >> (60 - 4 * k)) & 0xF) as usize];
-    }
+    out[..8].copy_from_slice(&hex8_ascii((x >> 32) as u32));
+    out[8..16].copy_from_slice(&hex8_ascii(x as u32));
+}
+
+/// The eight lowercase hexadecimal digits of `x`, most significant first,
+/// computed in one word: the nibbles are spread one per byte (halves, then
+/// bytes, then nibbles apart), and each byte gets `'0'`, plus 39 more for
+/// the nibbles 10 to 15 (`n + 6` reaches bit 4 exactly for those), so
+/// that they land on `'a'..'f'`. No byte ever carries into the next.
+#[inline]
+fn hex8_ascii(x: u32) -> [u8; 8] {
+    let x = u64::from(x);
+    let v = ((x & 0xFFFF_0000) << 16) | (x & 0xFFFF);
+    let v = ((v & 0x0000_FF00_0000_FF00) << 8) | (v & 0x0000_00FF_0000_00FF);
+    let v = ((v & 0x00F0_00F0_00F0_00F0) << 4) | (v & 0x000F_000F_000F_000F);
+    let letters = ((v + 0x0606_0606_0606_0606) >> 4) & 0x0101_0101_0101_0101;
+    // byte k holds nibble k (least significant first): big-endian order
+    // puts the most significant digit first
+    (v + 0x3030_3030_3030_3030 + letters * 39).to_be_bytes()
 }
 
 /// Limbs formatted per rayon task when writing.
@@ -688,6 +702,17 @@ mod tests {
         }
         assert_eq!(hex16(b"ffffffffffffffff"), u64::MAX);
         assert_eq!(hex16(b"0000000000000000"), 0);
+        // Every nibble value in every position, and the digit/letter edge.
+        for k in 0..16 {
+            for n in 0..16u64 {
+                for base in [0u64, u64::MAX, 0x0123_4567_89ab_cdef, 0x9a9a_9a9a_9a9a_9a9a] {
+                    let x = (base & !(0xF << (4 * k))) | (n << (4 * k));
+                    let mut s = [0u8; 16];
+                    put16_hex(&mut s, x);
+                    assert_eq!(&s, format!("{x:016x}").as_bytes());
+                }
+            }
+        }
     }
 
     #[test]
