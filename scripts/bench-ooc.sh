@@ -16,8 +16,9 @@
 #   OOC_CHECKPOINT_COST=0 (skip the second out-of-core run without
 #   checkpoints that measures their cost), OOC_PAIRS=N (N more alternating
 #   runs with and without checkpoints, for a steadier figure).
-# Also samples the scratch file system's disk use during the out-of-core
-# run and checks its product with `vastmul check`.
+# Also measures the scratch disk's sequential bandwidth with dd (O_DIRECT),
+# samples the scratch file system's disk use during the out-of-core run
+# and checks its product with `vastmul check`.
 # Disk: two operands of DIGITS bytes, two products of 2*DIGITS bytes, and
 # scratch of about 4 * 8 * (next power of two above 2*DIGITS/19) bytes.
 set -euo pipefail
@@ -48,7 +49,8 @@ run() { # label, output, extra args...
   rss=$(grep "Maximum resident set size" "$log" | awk '{print $NF}')
   echo "| $label | $wall | $((rss / 1024)) | $(b3sum_of "$out") |"
 }
-b3sum_of() { "$v" info "$1" --json | grep '"blake3"' | cut -d'"' -f4 | cut -c1-16; }
+# The file's own BLAKE3 (info also prints the manifest's, which repeats it).
+b3sum_of() { "$v" info "$1" --json | grep -m1 '"blake3"' | cut -d'"' -f4 | cut -c1-16; }
 
 echo "# out-of-core benchmark: two $digits-digit decimal operands, $threads threads"
 echo "- date: $(date -u), $(uname -m), $(grep -m1 'model name' /proc/cpuinfo | cut -d: -f2 | xargs), $(nproc) cores, $(free -g | awk '/Mem:/{print $2}') GiB RAM"
@@ -65,6 +67,15 @@ print("| pass | reads MiB | writes MiB |\n|---|---|---|")
 for s in p['passes']:
     print(f"| {s['name']} | {s['read_bytes'] / 2**20:.1f} | {s['write_bytes'] / 2**20:.1f} |")
 PY
+# The scratch disk's sequential bandwidth, as dd sees it with the page
+# cache bypassed (O_DIRECT), 1 GiB each way: the bar for disk-bound passes.
+ddf="$dir/scratch/dd-bandwidth.bin"
+dd_rate() { LC_ALL=C dd "$@" bs=16M count=64 2>&1 | awk '/copied/ {print $(NF-1), $NF}'; }
+echo
+echo "## Disk bandwidth (dd, O_DIRECT, 1 GiB)"
+echo "- sequential write: $(dd_rate if=/dev/zero of="$ddf" oflag=direct conv=fsync)"
+echo "- sequential read: $(dd_rate if="$ddf" of=/dev/null iflag=direct)"
+rm -f "$ddf"
 echo
 echo "| run | wall (h:mm:ss) | peak RSS MiB | product BLAKE3 (prefix) |"
 echo "|---|---|---|---|"
