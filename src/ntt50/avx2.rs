@@ -124,6 +124,27 @@ pub fn radix3_inverse(a: &mut [u64], t: &Radix3) {
     scalar::radix3_inverse_from(a, t, done);
 }
 
+/// Garner's mixed-radix digits of four residue streams, four positions at
+/// a time in doubles, the same values as [`super::crt::Crt50`]'s scalar
+/// digits: `r[i]` in `[0, 4p_i)` (what the inverse transform leaves),
+/// `y[i]` filled with digits in `[0, p_i)`; `s` and `c` are the Garner
+/// constants (`c[i][j]` for `j < i`). Panics if the CPU lacks AVX2 or FMA,
+/// or the slices differ in length.
+pub(crate) fn garner_digits(
+    r: [&[u64]; 4],
+    y: [&mut [u64]; 4],
+    m: &[Modulus50; 4],
+    s: &[MulConst; 4],
+    c: &[[MulConst; 4]; 4],
+) {
+    let n = r[0].len();
+    assert!(r.iter().all(|x| x.len() == n) && y.iter().all(|x| x.len() == n));
+    require(Kernel::Avx2);
+    // SAFETY: `require` checked that the CPU has every feature the callee
+    // is compiled for.
+    unsafe { garner_all(r, y, m, s, c) }
+}
+
 /// `row[j] = row[j] * step^j mod p`: `[0, 4p)` in, `[0, 2p)` out. Panics
 /// if the CPU lacks AVX2 or FMA.
 pub fn twiddle_powers(row: &mut [u64], step: u64, m: &Modulus50) {
@@ -720,6 +741,79 @@ fn radix3_vectors<const FWD: bool>(a: &mut [u64], t: &Radix3) -> usize {
         store(&mut z[v], out[2], k);
     }
     full
+}
+
+/// The digits of one vector of positions (see [`garner_digits`]): the
+/// residue centred to `[-2p, 2p)` and each digit below `p < 2^50` stay
+/// inside [`mul_fixed`]'s range; every term lies in `(0, 2p_i)`, a
+/// difference is lifted by `2p_i` and brought back below it, and the digit
+/// finally below `p_i`.
+#[inline]
+#[target_feature(enable = "avx2,fma")]
+fn garner_vector(x: [D; 4], k: &[Consts; 4], s: &[Tw; 4], c: &[[Tw; 4]; 4]) -> [D; 4] {
+    let mut y = [_mm256_setzero_pd(); 4];
+    for i in 0..4 {
+        let mut acc = mul_fixed(_mm256_sub_pd(x[i], k[i].two_p), s[i], k[i]);
+        for j in 0..i {
+            let t = mul_fixed(y[j], c[i][j], k[i]);
+            acc = reduce_2p(_mm256_sub_pd(_mm256_add_pd(acc, k[i].two_p), t), k[i]);
+        }
+        let less = _mm256_sub_pd(acc, k[i].p);
+        y[i] = _mm256_blendv_pd(less, acc, less);
+    }
+    y
+}
+
+#[target_feature(enable = "avx2,fma")]
+fn garner_all(
+    r: [&[u64]; 4],
+    y: [&mut [u64]; 4],
+    m: &[Modulus50; 4],
+    s: &[MulConst; 4],
+    c: &[[MulConst; 4]; 4],
+) {
+    let k = [consts(&m[0]), consts(&m[1]), consts(&m[2]), consts(&m[3])];
+    let sv = [
+        splat_tw(s[0]),
+        splat_tw(s[1]),
+        splat_tw(s[2]),
+        splat_tw(s[3]),
+    ];
+    let mut cv = [[splat_tw(s[0]); 4]; 4];
+    for i in 0..4 {
+        for j in 0..i {
+            cv[i][j] = splat_tw(c[i][j]);
+        }
+    }
+    let n = r[0].len();
+    let [y0, y1, y2, y3] = y;
+    let full = n / W * W;
+    for at in (0..full).step_by(W).map(|i| i..i + W) {
+        let x = [
+            load(r[0][at.clone()].try_into().unwrap(), k[0]),
+            load(r[1][at.clone()].try_into().unwrap(), k[1]),
+            load(r[2][at.clone()].try_into().unwrap(), k[2]),
+            load(r[3][at.clone()].try_into().unwrap(), k[3]),
+        ];
+        let d = garner_vector(x, &k, &sv, &cv);
+        store((&mut y0[at.clone()]).try_into().unwrap(), d[0], k[0]);
+        store((&mut y1[at.clone()]).try_into().unwrap(), d[1], k[1]);
+        store((&mut y2[at.clone()]).try_into().unwrap(), d[2], k[2]);
+        store((&mut y3[at]).try_into().unwrap(), d[3], k[3]);
+    }
+    if full < n {
+        let x = [
+            load_part(&r[0][full..], k[0]),
+            load_part(&r[1][full..], k[1]),
+            load_part(&r[2][full..], k[2]),
+            load_part(&r[3][full..], k[3]),
+        ];
+        let d = garner_vector(x, &k, &sv, &cv);
+        store_part(&mut y0[full..], d[0], k[0]);
+        store_part(&mut y1[full..], d[1], k[1]);
+        store_part(&mut y2[full..], d[2], k[2]);
+        store_part(&mut y3[full..], d[3], k[3]);
+    }
 }
 
 /// Vectors of powers advanced independently in [`twiddle_all`], so that

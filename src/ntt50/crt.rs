@@ -157,6 +157,11 @@ impl Crt50 {
     }
 }
 
+/// The type of the vector paths' digit functions.
+#[cfg(target_arch = "x86_64")]
+type GarnerFn =
+    fn([&[u64]; K], [&mut [u64]; K], &[Modulus50; K], &[MulConst; K], &[[MulConst; K]; K]);
+
 /// Positions combined per call of a kernel's digit function: its buffers
 /// stay in L1.
 const DIGIT_BLOCK: usize = 256;
@@ -164,13 +169,13 @@ const DIGIT_BLOCK: usize = 256;
 impl Crt50 {
     /// The coefficients with residues `residues[i][k]`, as
     /// [`Crt50::coefficients`], the mixed-radix digits computed by `kernel`
-    /// (the IFMA path vectorises them; the others use the scalar digits).
+    /// (the IFMA and AVX2 paths vectorise them).
     /// Residues are taken modulo 2^52.
     ///
     /// With three residue slices the values are those below the product of
     /// the first three primes: Garner's first three digits depend on the
-    /// first three residues alone, and the fourth digit is zero (the fourth
-    /// residue slot is filled with a copy and its digit dropped).
+    /// first three residues alone, and the fourth digit is zero (its slot
+    /// holds zeros and its digit is dropped).
     ///
     /// Returns false, with `out` filled anyway, when any residue had bits
     /// above 52 or any value reached 2^192: residues that no product
@@ -187,9 +192,8 @@ impl Crt50 {
             "three or four residue slices of the output's length"
         );
         let three = residues.len() == 3;
-        let fourth = if three { residues[2] } else { residues[3] };
-        let residues: [&[u64]; K] = [residues[0], residues[1], residues[2], fourth];
         let mut bad = 0u64;
+        // The fourth slot stays zero for three residues.
         let mut r = [[0u64; DIGIT_BLOCK]; K];
         let mut y = [[0u64; DIGIT_BLOCK]; K];
         for first in (0..n).step_by(DIGIT_BLOCK) {
@@ -222,21 +226,36 @@ impl Crt50 {
         len: usize,
     ) {
         #[cfg(target_arch = "x86_64")]
-        if kernel == super::Kernel::Ifma {
-            let [y0, y1, y2, y3] = y;
-            super::ifma::garner_digits(
-                [&r[0][..len], &r[1][..len], &r[2][..len], &r[3][..len]],
-                [
-                    &mut y0[..len],
-                    &mut y1[..len],
-                    &mut y2[..len],
-                    &mut y3[..len],
-                ],
-                &self.m,
-                &self.s,
-                &self.c,
-            );
-            return;
+        {
+            // The AVX2 products are exact for residues below 4p only, which
+            // is all a transform leaves; anything larger (corrupt data) goes
+            // through the scalar digits, which take any value below 2^52.
+            let below_4p = || {
+                r.iter()
+                    .zip(&self.m)
+                    .all(|(ri, m)| ri[..len].iter().all(|&x| x < 4 * m.p))
+            };
+            let vector: Option<GarnerFn> = match kernel {
+                super::Kernel::Ifma => Some(super::ifma::garner_digits),
+                super::Kernel::Avx2 if below_4p() => Some(super::avx2::garner_digits),
+                _ => None,
+            };
+            if let Some(f) = vector {
+                let [y0, y1, y2, y3] = y;
+                f(
+                    [&r[0][..len], &r[1][..len], &r[2][..len], &r[3][..len]],
+                    [
+                        &mut y0[..len],
+                        &mut y1[..len],
+                        &mut y2[..len],
+                        &mut y3[..len],
+                    ],
+                    &self.m,
+                    &self.s,
+                    &self.c,
+                );
+                return;
+            }
         }
         let _ = kernel;
         for k in 0..len {
