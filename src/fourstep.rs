@@ -134,6 +134,21 @@ fn digest(log: &dyn BlockLog, words: &[u64]) -> Option<blake3::Hash> {
         .then(|| blake3::hash(crate::storage::words_as_bytes(words)))
 }
 
+/// The row twiddle steps of a shape with `rows` rows: the successive powers
+/// `one, next(one), next(next(one)), ...` of a root (in whatever form `next`
+/// multiplies), the `k1`-th placed at row `bitrev(k1)`, where the column
+/// transform leaves frequency `k1`.
+fn row_steps(rows: usize, one: u64, next: impl Fn(u64) -> u64) -> Vec<u64> {
+    let bits = rows.trailing_zeros();
+    let mut out = vec![0; rows];
+    let mut x = one;
+    for k1 in 0..rows {
+        out[bit_reverse(k1, bits)] = x;
+        x = next(x);
+    }
+    out
+}
+
 /// Tables of one prime below 2^62 for one shape.
 struct WideTables {
     modulus: Modulus,
@@ -152,19 +167,9 @@ impl WideTables {
         let n = shape.len() as u64;
         let w = prime.root_of_unity_any(n);
         let wi = m.inv(w);
-        let bits = shape.rows.trailing_zeros();
-        let (mut fwd, mut inv) = (vec![0; shape.rows], vec![0; shape.rows]);
-        // Successive powers w^k1, placed at the row where the column
-        // transform leaves frequency k1.
-        let (mut x, mut xi) = (m.mont_one, m.mont_one);
         let (w_m, wi_m) = (m.to_mont(w), m.to_mont(wi));
-        for k1 in 0..shape.rows {
-            let i = bit_reverse(k1, bits);
-            fwd[i] = x;
-            inv[i] = xi;
-            x = m.mont_mul(x, w_m);
-            xi = m.mont_mul(xi, wi_m);
-        }
+        let fwd = row_steps(shape.rows, m.mont_one, |x| m.mont_mul(x, w_m));
+        let inv = row_steps(shape.rows, m.mont_one, |x| m.mont_mul(x, wi_m));
         WideTables {
             modulus: m,
             col: Twiddles::new(prime, shape.rows),
@@ -193,16 +198,8 @@ impl NarrowTables {
         // The generator's root, as the rows' radix-3 step assumes.
         let w = prime.root_of_unity_any(shape.len() as u64);
         let wi = m.inv(w);
-        let bits = shape.rows.trailing_zeros();
-        let (mut fwd, mut inv) = (vec![0; shape.rows], vec![0; shape.rows]);
-        let (mut x, mut xi) = (1u64, 1u64);
-        for k1 in 0..shape.rows {
-            let i = bit_reverse(k1, bits);
-            fwd[i] = x;
-            inv[i] = xi;
-            x = m.mul(x, w);
-            xi = m.mul(xi, wi);
-        }
+        let fwd = row_steps(shape.rows, 1, |x| m.mul(x, w));
+        let inv = row_steps(shape.rows, 1, |x| m.mul(x, wi));
         NarrowTables {
             kernel,
             modulus: m,

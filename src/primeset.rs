@@ -188,14 +188,6 @@ impl PrimeSet {
         }
     }
 
-    /// A short name for reports: `wide` or the kernel's name.
-    pub fn name(self) -> &'static str {
-        match self {
-            PrimeSet::Three62 => "wide",
-            PrimeSet::Four50(k) | PrimeSet::Three50(k) => k.name(),
-        }
-    }
-
     /// A description for the plan's printout.
     pub fn describe(self) -> String {
         match self {

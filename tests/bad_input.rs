@@ -32,12 +32,18 @@ fn exit_codes_are_the_documented_ones() {
 }
 
 fn run(dir: &Path, args: &[&str]) -> Output {
+    run_with(dir, args, &[])
+}
+
+/// [`run`] with the environment variables `env` set.
+fn run_with(dir: &Path, args: &[&str], env: &[(&str, &str)]) -> Output {
     Command::new(env!("CARGO_BIN_EXE_vastmul"))
         .args(args)
         .current_dir(dir)
         // Without it a panic prints its "RUST_BACKTRACE" note, which the
         // checks below look for.
         .env_remove("RUST_BACKTRACE")
+        .envs(env.iter().copied())
         .output()
         .expect("run vastmul")
 }
@@ -751,13 +757,7 @@ fn an_unknown_or_unsupported_kernel_is_refused() {
     let args = ["mul", "a.txt", "b.txt", "-o", "c.txt"];
     let refuse = |value: &str, fragments: &[&str]| {
         let b = before(dir, &args);
-        let o = Command::new(env!("CARGO_BIN_EXE_vastmul"))
-            .args(args)
-            .current_dir(dir)
-            .env_remove("RUST_BACKTRACE")
-            .env("VASTMUL_KERNEL", value)
-            .output()
-            .expect("run vastmul");
+        let o = run_with(dir, &args, &[("VASTMUL_KERNEL", value)]);
         check_refusal(dir, &args, &o, &b, 2, fragments);
     };
     refuse(

@@ -260,35 +260,10 @@ fn after_a_resume_the_display_starts_where_the_run_stopped() {
     operands(d);
     // Stopped by SIGINT once the rows of the first prime are under way
     // (journal step 2), so the columns of A and of B for prime 0 are done.
-    let mut child = Command::new(BIN)
-        .args(MUL)
-        .current_dir(d)
-        .env("VASTMUL_PROGRESS_EVERY", "0.05")
-        .stderr(std::process::Stdio::piped())
-        .spawn()
-        .unwrap();
-    let started = std::time::Instant::now();
-    while journal_step(d).is_none_or(|s| s < 2) {
-        if child.try_wait().unwrap().is_some() {
-            println!("skipped: the run finished before it could be interrupted");
-            return;
-        }
-        assert!(
-            started.elapsed().as_secs() < 120,
-            "no progress in the journal"
-        );
-        std::thread::sleep(std::time::Duration::from_millis(2));
-    }
-    // SAFETY: kill only sends a signal to our own child's pid.
-    unsafe {
-        libc::kill(child.id() as i32, libc::SIGINT);
-    }
-    let o = child.wait_with_output().unwrap();
-    if o.status.success() {
-        println!("skipped: the run completed before the signal arrived");
+    if !interrupt_under(d, &[("VASTMUL_PROGRESS_EVERY", "0.05")]) {
+        println!("skipped: the run finished before it could be interrupted");
         return;
     }
-    assert_eq!(o.status.code(), Some(130), "{o:?}");
 
     let o = Command::new(BIN)
         .args(MUL)
@@ -356,14 +331,14 @@ fn check_reports_each_file_it_reads() {
     assert!(!err.contains("check passed"), "{err}");
 }
 
-/// Starts `MUL` in `d` with `VASTMUL_KERNEL=kernel` and stops it by SIGINT
-/// once the rows of the first prime are under way; false when the run
-/// finished first (nothing left to resume).
-fn interrupt_under(d: &Path, kernel: &str) -> bool {
+/// Starts `MUL` in `d` with the variables `env` and stops it by SIGINT
+/// once the rows of the first prime are under way (journal step 2); checks
+/// exit code 130. False when the run finished first (nothing to resume).
+fn interrupt_under(d: &Path, env: &[(&str, &str)]) -> bool {
     let mut child = Command::new(BIN)
         .args(MUL)
         .current_dir(d)
-        .env("VASTMUL_KERNEL", kernel)
+        .envs(env.iter().copied())
         .stderr(std::process::Stdio::piped())
         .spawn()
         .unwrap();
@@ -410,7 +385,7 @@ fn an_interrupted_run_resumes_on_another_kernel_of_the_same_primes() {
         .output()
         .unwrap();
     assert!(o.status.success(), "{o:?}");
-    if !interrupt_under(d, "scalar") {
+    if !interrupt_under(d, &[("VASTMUL_KERNEL", "scalar")]) {
         println!("skipped: the run finished before it could be interrupted");
         return;
     }

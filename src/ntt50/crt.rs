@@ -134,24 +134,13 @@ impl Crt50 {
     }
 
     /// [`Crt50::combine`] for every position: `out[k]` from
-    /// `residues[i][k]`. Panics if the lengths differ, or if any value is
-    /// 2^192 or more (checked once, after the loop, so the check costs one
-    /// OR per coefficient).
+    /// `residues[i][k]`, on the scalar digits. Panics if the lengths
+    /// differ, or if any residue has bits above 52 or any value is 2^192 or
+    /// more (see [`Crt50::coefficients_checked`] for the form that reports
+    /// them instead).
     pub fn coefficients(&self, residues: [&[u64]; K], out: &mut [[u64; 3]]) {
-        let n = out.len();
         assert!(
-            residues.iter().all(|r| r.len() == n),
-            "residue slices and output differ in length"
-        );
-        let [r0, r1, r2, r3] = residues.map(|r| &r[..n]);
-        let mut top = 0u64;
-        for (k, o) in out.iter_mut().enumerate() {
-            let [w0, w1, w2, w3] = self.combine_wide([r0[k], r1[k], r2[k], r3[k]]);
-            *o = [w0, w1, w2];
-            top |= w3;
-        }
-        assert_eq!(
-            top, 0,
+            self.coefficients_checked(super::Kernel::Scalar, &residues, out),
             "coefficient exceeds 192 bits: the residues are not those of a product"
         );
     }
@@ -188,8 +177,12 @@ impl Crt50 {
     ) -> bool {
         let n = out.len();
         assert!(
-            (3..=K).contains(&residues.len()) && residues.iter().all(|r| r.len() == n),
-            "three or four residue slices of the output's length"
+            (3..=K).contains(&residues.len()),
+            "three or four residue slices"
+        );
+        assert!(
+            residues.iter().all(|r| r.len() == n),
+            "residue slices and output differ in length"
         );
         let three = residues.len() == 3;
         let mut bad = 0u64;
@@ -198,13 +191,18 @@ impl Crt50 {
         let mut y = [[0u64; DIGIT_BLOCK]; K];
         for first in (0..n).step_by(DIGIT_BLOCK) {
             let len = DIGIT_BLOCK.min(n - first);
-            for (ri, src) in r.iter_mut().zip(residues) {
+            // Whether every residue is below 4p, as a transform leaves
+            // them, taken on the way (the AVX2 digits need it).
+            let mut below_4p = true;
+            for ((ri, src), m) in r.iter_mut().zip(residues).zip(&self.m) {
+                let four_p = 4 * m.p;
                 for (d, &x) in ri[..len].iter_mut().zip(&src[first..first + len]) {
                     bad |= x;
+                    below_4p &= x < four_p;
                     *d = x & MASK52;
                 }
             }
-            self.digits_block(kernel, &r, &mut y, len);
+            self.digits_block(kernel, &r, &mut y, len, below_4p);
             if three {
                 y[3][..len].fill(0);
             }
@@ -224,20 +222,16 @@ impl Crt50 {
         r: &[[u64; DIGIT_BLOCK]; K],
         y: &mut [[u64; DIGIT_BLOCK]; K],
         len: usize,
+        below_4p: bool,
     ) {
         #[cfg(target_arch = "x86_64")]
         {
             // The AVX2 products are exact for residues below 4p only, which
             // is all a transform leaves; anything larger (corrupt data) goes
             // through the scalar digits, which take any value below 2^52.
-            let below_4p = || {
-                r.iter()
-                    .zip(&self.m)
-                    .all(|(ri, m)| ri[..len].iter().all(|&x| x < 4 * m.p))
-            };
             let vector: Option<GarnerFn> = match kernel {
                 super::Kernel::Ifma => Some(super::ifma::garner_digits),
-                super::Kernel::Avx2 if below_4p() => Some(super::avx2::garner_digits),
+                super::Kernel::Avx2 if below_4p => Some(super::avx2::garner_digits),
                 _ => None,
             };
             if let Some(f) = vector {
@@ -257,7 +251,7 @@ impl Crt50 {
                 return;
             }
         }
-        let _ = kernel;
+        let _ = (kernel, below_4p);
         for k in 0..len {
             let d = self.digits([r[0][k], r[1][k], r[2][k], r[3][k]]);
             for (yi, di) in y.iter_mut().zip(d) {
