@@ -260,8 +260,8 @@ fn a_disk_that_fills_mid_run_keeps_the_state_and_the_rerun_completes() {
     write_two_operands(d);
     let o = run_in(d, &["mul", "a.txt", "b.txt", "-o", "ram.txt"]);
     assert!(o.status.success());
-    // Scratch and product on the tiny disk; it fills once the transforms
-    // are done, before the product is written.
+    // Scratch and product on the tiny disk; it fills during the last
+    // prime's passes, before the product is written.
     let args = [
         "mul",
         "a.txt",
@@ -271,18 +271,34 @@ fn a_disk_that_fills_mid_run_keeps_the_state_and_the_rerun_completes() {
         "--memory",
         "16MiB",
     ];
+    let planned = run_in(
+        d,
+        &["plan", "a.txt", "b.txt", "--memory", "16MiB", "--json"],
+    );
+    let planned: serde_json::Value = serde_json::from_slice(&planned.stdout).unwrap();
+    let primes = planned["primes"]
+        .as_array()
+        .expect("primes in the plan")
+        .len();
     let mut child = std::process::Command::new(env!("CARGO_BIN_EXE_vastmul"))
         .args(args)
         .current_dir(d)
         .stderr(std::process::Stdio::piped())
         .spawn()
         .unwrap();
-    while journal_step(&disk.0).is_none_or(|s| s < 9) {
+    let last_chain = vastmul::ooc::step::columns_b(primes - 1);
+    while journal_step(&disk.0).is_none_or(|s| s < last_chain) {
         assert!(
             child.try_wait().unwrap().is_none(),
             "finished before the disk filled"
         );
         std::thread::sleep(std::time::Duration::from_millis(1));
+    }
+    // The run is held while the disk fills, so that the fill always comes
+    // before the product's write however fast the passes are.
+    // SAFETY: kill only sends signals to our own child's pid.
+    unsafe {
+        libc::kill(child.id() as i32, libc::SIGSTOP);
     }
     let filler = disk.0.join("filler");
     {
@@ -290,6 +306,10 @@ fn a_disk_that_fills_mid_run_keeps_the_state_and_the_rerun_completes() {
         let mut f = std::fs::File::create(&filler).unwrap();
         let block = vec![0u8; 1 << 16];
         while f.write_all(&block).is_ok() {}
+    }
+    // SAFETY: as above.
+    unsafe {
+        libc::kill(child.id() as i32, libc::SIGCONT);
     }
     let out = child.wait_with_output().unwrap();
     let err = String::from_utf8_lossy(&out.stderr);
