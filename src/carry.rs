@@ -4,10 +4,21 @@
 use crate::radix::{Radix, DEC_BASE};
 use rayon::prelude::*;
 
-/// A 192-bit unsigned number, least significant word first.
+/// A 192-bit number in two's complement, least significant word first.
+/// Coefficients of plain limbs are non-negative and below 2^191; those of
+/// balanced digits may be negative (see [`crate::fourstep`]). Carries
+/// between limbs are signed likewise.
 pub type U192 = [u64; 3];
 
-/// `a + b` for 192-bit numbers; the callers' sums stay far below 2^192.
+/// The sign word of a 192-bit two's complement value: all ones when it is
+/// negative, else zero.
+#[inline(always)]
+fn sign_of(x: U192) -> u64 {
+    ((x[2] as i64) >> 63) as u64
+}
+
+/// `a + b` for 192-bit numbers, wrapping (two's complement); the callers'
+/// sums stay far inside the signed range.
 #[inline(always)]
 pub fn add192(a: U192, b: U192) -> U192 {
     let (w0, c0) = a[0].overflowing_add(b[0]);
@@ -46,16 +57,23 @@ fn div_2by1(u1: u64, u0: u64, d: u64, v: u64) -> (u64, u64) {
     (q1, r)
 }
 
-/// Splits `x` into `(x div base, x mod base)` for the radix's limb base.
+/// Splits `x` into `(floor(x / base), x mod base)` for the radix's limb
+/// base, `x` signed (two's complement): the remainder is always a limb in
+/// `[0, base)`, the quotient carries the sign.
 #[inline(always)]
 pub fn split_limb(x: U192, radix: Radix) -> (U192, u64) {
+    let s = sign_of(x);
     match radix {
-        Radix::Binary => ([x[1], x[2], 0], x[0]),
+        Radix::Binary => ([x[1], x[2], s], x[0]),
         Radix::Decimal => {
-            debug_assert!(x[2] < DEC_BASE);
-            let (q1, r1) = div_2by1(x[2], x[1], DEC_BASE, DEC_RECIPROCAL);
-            let (q0, r0) = div_2by1(r1, x[0], DEC_BASE, DEC_RECIPROCAL);
-            ([q0, q1, 0], r0)
+            // For negative x, y = -x - 1 = !x is non-negative; with
+            // y = q B + r, x = (-q - 1) B + (B - 1 - r) = !q B + (B - 1 - r).
+            let y = [x[0] ^ s, x[1] ^ s, x[2] ^ s];
+            debug_assert!(y[2] < DEC_BASE);
+            let (q1, r1) = div_2by1(y[2], y[1], DEC_BASE, DEC_RECIPROCAL);
+            let (q0, r0) = div_2by1(r1, y[0], DEC_BASE, DEC_RECIPROCAL);
+            let r = if s == 0 { r0 } else { DEC_BASE - 1 - r0 };
+            ([q0 ^ s, q1 ^ s, s], r)
         }
     }
 }
@@ -133,6 +151,7 @@ where
 
 /// Writes the final carry above the coefficients and zero-fills the rest.
 fn finish(out: &mut [u64], count: usize, mut carry: U192, radix: Radix) {
+    assert!(sign_of(carry) == 0, "negative carry out of the product");
     let mut k = count;
     while carry != [0, 0, 0] {
         assert!(k < out.len(), "product overflows its limb count");
@@ -146,6 +165,7 @@ fn finish(out: &mut [u64], count: usize, mut carry: U192, radix: Radix) {
 
 /// The limbs of a final carry, least significant first (at most three).
 pub fn carry_limbs(mut carry: U192, radix: Radix) -> Vec<u64> {
+    assert!(sign_of(carry) == 0, "negative carry out of the product");
     let mut out = Vec::new();
     while carry != [0, 0, 0] {
         let (q, r) = split_limb(carry, radix);
@@ -188,6 +208,75 @@ mod tests {
             (q[1] >> 32) as u32,
         ]);
         assert_eq!(qb, n / base);
+    }
+
+    /// Signed values split as floor division does (remainder a limb, the
+    /// quotient rounded down), compared with i128 arithmetic in both
+    /// radixes, across zero and around multiples of the base.
+    #[test]
+    fn signed_split_is_floor_division() {
+        for radix in [Radix::Binary, Radix::Decimal] {
+            let base: i128 = match radix {
+                Radix::Binary => 1 << 64,
+                Radix::Decimal => DEC_BASE as i128,
+            };
+            let mut cases: Vec<i128> = vec![0, 1, -1, i128::MAX / 2, i128::MIN / 2];
+            for k in [-3i128, -1, 1, 5] {
+                for d in [-1i128, 0, 1] {
+                    cases.push(k * base + d);
+                }
+            }
+            for &x in &cases {
+                let w = [x as u64, (x >> 64) as u64, (x >> 127) as u64];
+                let (q, r) = split_limb(w, radix);
+                assert_eq!(r as i128, x.rem_euclid(base), "{radix:?} {x}");
+                let qq = x.div_euclid(base);
+                assert_eq!(
+                    q,
+                    [qq as u64, (qq >> 64) as u64, (qq >> 127) as u64],
+                    "{radix:?} {x}"
+                );
+            }
+        }
+    }
+
+    /// Negative coefficients borrow from the limbs above them: the limbs of
+    /// `sum c_k base^k` for `c_k` alternating `+v` and `-(v - 1)` equal the
+    /// same sum taken in num-bigint.
+    #[test]
+    fn negative_coefficients_borrow_across_chunks() {
+        use num_bigint::BigInt;
+        for radix in [Radix::Binary, Radix::Decimal] {
+            // odd, so that the top coefficient is positive, as a product's is
+            let count = 20_001;
+            let v: i128 = 1 << 100;
+            let c = |k: usize| if k.is_multiple_of(2) { v } else { -(v - 1) };
+            let mut out = vec![0u64; count + 4];
+            propagate(
+                count,
+                |first, dst| {
+                    for (i, d) in dst.iter_mut().enumerate() {
+                        let x = c(first + i);
+                        *d = [x as u64, (x >> 64) as u64, (x >> 127) as u64];
+                    }
+                },
+                radix,
+                &mut out,
+            );
+            let base = BigInt::from(match radix {
+                Radix::Binary => 1i128 << 64,
+                Radix::Decimal => DEC_BASE as i128,
+            });
+            let mut want = BigInt::from(0);
+            for k in (0..count).rev() {
+                want = want * &base + BigInt::from(c(k));
+            }
+            let mut got = BigInt::from(0);
+            for &l in out.iter().rev() {
+                got = got * &base + BigInt::from(l);
+            }
+            assert_eq!(got, want, "{radix:?}");
+        }
     }
 
     #[test]

@@ -74,6 +74,10 @@ impl<S: LimbSource + ?Sized> LimbSource for Counted<'_, S> {
     fn prefetch_limbs(&self, first: usize, n: usize) {
         self.0.prefetch_limbs(first, n)
     }
+
+    fn peek_limb(&self, i: usize) -> u64 {
+        self.0.peek_limb(i)
+    }
 }
 
 /// The signed residues of an operand file modulo each of `moduli`.

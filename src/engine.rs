@@ -202,7 +202,7 @@ where
     B: LimbSource + ?Sized,
 {
     let (la, lb) = (plan.a_limbs, plan.b_limbs);
-    let fs = FourStep::new(shape, plan.prime_set);
+    let fs = FourStep::new(shape, plan.prime_set, plan.radix);
     let n = shape.len();
     let count = la + lb - 1;
     let stores_a: Vec<RamStore> = (0..fs.prime_count()).map(|_| RamStore::zeroed(n)).collect();

@@ -27,6 +27,14 @@
 //! The passes are the same for both prime sets; only the per-prime
 //! arithmetic differs ([`PrimeArith`]): the 62-bit scalar kernels with
 //! Montgomery twiddles, or one of the 50-bit kernel paths.
+//!
+//! The 50-bit sets transform balanced digits rather than the limbs: a limb
+//! at or above half the base becomes negative by lending one base to the
+//! next limb ([`balance_flags`]), so that no digit but the top one exceeds
+//! half the base in size. The convolution's coefficients are then a quarter
+//! the size and signed, three 50-bit primes hold them for operands twice as
+//! long, and the CRT returns them in two's complement
+//! ([`Crt50::signed_values`]), which the carry pass takes as it is.
 
 use crate::arith::primes::{NttPrime, PRIMES};
 use crate::arith::Modulus;
@@ -37,6 +45,7 @@ use crate::ntt50::crt::Crt50;
 use crate::ntt50::primes::Prime50;
 use crate::ntt50::{self as n50, Kernel, Modulus50};
 use crate::primeset::PrimeSet;
+use crate::radix::{Radix, DEC_BASE};
 use crate::storage::{LimbSource, Store};
 use crate::{Error, Result};
 use rayon::prelude::*;
@@ -184,6 +193,8 @@ impl WideTables {
 struct NarrowTables {
     kernel: Kernel,
     modulus: Modulus50,
+    /// `p - (base mod p)`: what a balanced digit's borrow of one base adds.
+    neg_base: u64,
     col: n50::Twiddles,
     row: n50::Twiddles,
     /// `w_N^(k1)` for the row at position `i` (`k1 = bitrev(i)`).
@@ -193,8 +204,12 @@ struct NarrowTables {
 }
 
 impl NarrowTables {
-    fn new(prime: &Prime50, shape: Shape, kernel: Kernel) -> Self {
+    fn new(prime: &Prime50, shape: Shape, kernel: Kernel, radix: Radix) -> Self {
         let m = prime.modulus;
+        let base = match radix {
+            Radix::Binary => ((1u128 << 64) % m.p as u128) as u64,
+            Radix::Decimal => DEC_BASE % m.p,
+        };
         // The generator's root, as the rows' radix-3 step assumes.
         let w = prime.root_of_unity_any(shape.len() as u64);
         let wi = m.inv(w);
@@ -203,6 +218,7 @@ impl NarrowTables {
         NarrowTables {
             kernel,
             modulus: m,
+            neg_base: m.p - base,
             col: n50::Twiddles::new(prime, shape.rows),
             row: n50::Twiddles::new(prime, shape.cols),
             row_step_fwd: fwd,
@@ -230,6 +246,22 @@ impl PrimeArith {
             PrimeArith::Narrow(t) => {
                 buf.copy_from_slice(raw);
                 t.kernel.reduce_words(buf, &t.modulus);
+            }
+        }
+    }
+
+    /// Turns `buf`, limbs reduced into `[0, 2p)`, into their balanced
+    /// digits modulo p (`[0, 2p)` again): bit 0 of `flags[i]` adds the carry
+    /// in, bit 1 takes one base off (see [`balance_flags`]).
+    fn balance(&self, buf: &mut [u64], flags: &[u8]) {
+        if let PrimeArith::Narrow(t) = self {
+            let (two_p, neg_base) = (2 * t.modulus.p, t.neg_base);
+            // [0, 2p) + 1 + (p - base mod p) < 3p + 1: one subtraction of
+            // 2p at most brings it back.
+            for (b, &f) in buf.iter_mut().zip(flags) {
+                let borrow = ((f >> 1) as u64).wrapping_neg() & neg_base;
+                let v = *b + (f & 1) as u64 + borrow;
+                *b = if v >= two_p { v - two_p } else { v };
             }
         }
     }
@@ -304,6 +336,8 @@ enum Combiner {
 pub struct FourStep {
     shape: Shape,
     set: PrimeSet,
+    /// Half the limb base when the set transforms balanced digits.
+    balance_half: Option<u64>,
     tables: Vec<PrimeArith>,
     crt: Combiner,
 }
@@ -351,6 +385,65 @@ fn read_ahead_span(block: usize, lanes: usize, cols: usize) -> Option<std::ops::
     Some(c0..(c0 + 2 * stretch).min(cols))
 }
 
+/// Where a column block's row segments lie in the operand: `lanes` limbs
+/// from `cols * n1 + c0` for row `n1`, of an operand of `len` limbs.
+#[derive(Clone, Copy)]
+struct Segments {
+    lanes: usize,
+    cols: usize,
+    c0: usize,
+    len: usize,
+}
+
+/// The balanced-digit flags of a column block's limbs `raw` (row segments
+/// laid out as [`Segments`] says, `live_rows` of them read): bit 0 of
+/// `flags[i]` when limb `g` (`raw[i]`'s position) takes a carry in, bit 1
+/// when it gives one base away.
+///
+/// The balanced digit of limb `g` is `x_g + t_(g-1) - base t_g` with
+/// `t_g = [x_g >= half]`, except that the top limb (`g = len - 1`) keeps its
+/// carry in and gives nothing away, so no digit appears past the operand
+/// and the transform length stays that of the plain limbs. Every digit but
+/// the top one lies in `[-half, half]`, which is what halves the
+/// coefficients' size ([`crate::ntt50::primes::balanced_bound_holds_for_first`]).
+/// The carry into each segment's first limb comes from its left neighbour,
+/// which another block reads: it is peeked, not read, so residue taps count
+/// every limb once.
+fn balance_flags<L: LimbSource + ?Sized>(
+    raw: &[u64],
+    flags: &mut [u8],
+    seg: Segments,
+    live_rows: usize,
+    half: u64,
+    limbs: &L,
+) {
+    let Segments {
+        lanes,
+        cols,
+        c0,
+        len,
+    } = seg;
+    for (n1, (x, f)) in raw
+        .chunks_exact(lanes)
+        .zip(flags.chunks_exact_mut(lanes))
+        .enumerate()
+    {
+        if n1 >= live_rows {
+            f.fill(0);
+            continue;
+        }
+        let g0 = cols * n1 + c0;
+        let mut prev_top = g0 > 0 && g0 < len && limbs.peek_limb(g0 - 1) >= half;
+        for (l, (&xl, fl)) in x.iter().zip(f.iter_mut()).enumerate() {
+            let g = g0 + l;
+            let carry_in = prev_top && g < len;
+            let top = xl >= half && g + 1 < len;
+            *fl = carry_in as u8 | (top as u8) << 1;
+            prev_top = xl >= half;
+        }
+    }
+}
+
 /// Per-thread buffers of the row pass.
 struct RowBuffers {
     a: Vec<u64>,
@@ -362,11 +455,12 @@ impl FourStep {
     /// Prepares tables for `shape` (`rows` a power of two, `cols` a length
     /// the set's kernels take, `lanes` dividing `cols`) with the primes and
     /// kernels of `set`.
-    pub fn new(shape: Shape, set: PrimeSet) -> Self {
+    pub fn new(shape: Shape, set: PrimeSet, radix: Radix) -> Self {
         assert!(shape.rows.is_power_of_two() && set.supports_len(shape.cols));
         assert!(set.supports_len(shape.len()));
         assert!(shape.lanes >= 1 && shape.cols.is_multiple_of(shape.lanes));
         let n = shape.len() as u64;
+        let balance_half = set.balanced_digits().then(|| radix.half_base());
         match set {
             PrimeSet::Three62 => {
                 let tables: Vec<WideTables> =
@@ -383,6 +477,7 @@ impl FourStep {
                 FourStep {
                     shape,
                     set,
+                    balance_half,
                     tables: tables
                         .into_iter()
                         .map(|t| PrimeArith::Wide(Box::new(t)))
@@ -393,13 +488,19 @@ impl FourStep {
             PrimeSet::Four50(kernel) | PrimeSet::Three50(kernel) => FourStep {
                 shape,
                 set,
+                balance_half,
                 tables: n50::primes::PRIMES[..set.count()]
                     .iter()
-                    .map(|p| PrimeArith::Narrow(Box::new(NarrowTables::new(p, shape, kernel))))
+                    .map(|p| {
+                        PrimeArith::Narrow(Box::new(NarrowTables::new(p, shape, kernel, radix)))
+                    })
                     .collect(),
                 // The pointwise product keeps the scale at 1, so the inverse
-                // leaves N * c.
-                crt: Combiner::Narrow(Box::new(Crt50::for_transform_len(n)), kernel),
+                // leaves N * c; balanced digits make c signed.
+                crt: Combiner::Narrow(
+                    Box::new(Crt50::for_transform_len(n).signed_values()),
+                    kernel,
+                ),
             },
         }
     }
@@ -438,8 +539,18 @@ impl FourStep {
         let Shape { rows, cols, lanes } = self.shape;
         announce(logs, cols / lanes);
         (0..cols / lanes).into_par_iter().try_for_each_init(
-            || (vec![0u64; rows * lanes], vec![0u64; rows * lanes]),
-            |(raw, buf), block| {
+            || {
+                let flags = vec![
+                    0u8;
+                    if self.balance_half.is_some() {
+                        rows * lanes
+                    } else {
+                        0
+                    }
+                ];
+                (vec![0u64; rows * lanes], vec![0u64; rows * lanes], flags)
+            },
+            |(raw, buf, flags), block| {
                 if logs.iter().all(|l| l.done(block)) {
                     return Ok(());
                 }
@@ -461,12 +572,24 @@ impl FourStep {
                     limbs.fill_limbs(cols * n1 + c0, seg);
                 }
                 raw[live_rows * lanes..].fill(0);
+                if let Some(half) = self.balance_half {
+                    let seg = Segments {
+                        lanes,
+                        cols,
+                        c0,
+                        len,
+                    };
+                    balance_flags(raw, flags, seg, live_rows, half, limbs);
+                }
                 for ((&k, store), log) in primes.iter().zip(stores).zip(logs) {
                     if log.done(block) {
                         continue;
                     }
                     let t = &self.tables[k];
                     t.reduce_into(raw, buf);
+                    if self.balance_half.is_some() {
+                        t.balance(buf, flags);
+                    }
                     t.forward_columns(buf, lanes);
                     for (n1, seg) in buf.chunks_exact(lanes).enumerate() {
                         store.write(cols * n1 + c0, seg)?;

@@ -184,7 +184,7 @@ impl<'a> OutOfCore<'a> {
         }
         let mut run = OutOfCore {
             plan,
-            fs: FourStep::new(shape, plan.prime_set),
+            fs: FourStep::new(shape, plan.prime_set, plan.radix),
             window,
             journal,
             done,

@@ -167,7 +167,7 @@ where
     );
     let total = ll + ls;
     let short = read_all(short, ls);
-    let fs = shape.map(|s| FourStep::new(s, plan.prime_set));
+    let fs = shape.map(|s| FourStep::new(s, plan.prime_set, plan.radix));
     let mut sink = if product_on_disk {
         Sink::Disk(FileStore::create(&scratch_path(dir, "product"), total)?)
     } else {

@@ -677,16 +677,16 @@ mod tests {
                 shape_for(min_len, PrimeSet::Three62)
             );
         }
-        // 2^22 limbs (2^28 bits) are past three 50-bit primes' bound.
-        let n = 1u64 << 23;
-        let mut r = req(1 << 22, 1 << 22);
+        // 2^23 limbs (2^29 bits) are past three 50-bit primes' bound.
+        let n = 1u64 << 24;
+        let mut r = req(1 << 23, 1 << 23);
         r.primes = four;
         let p4 = plan(&r).unwrap();
         r.primes = PrimeSet::Three62;
         let p3 = plan(&r).unwrap();
         assert_eq!((p4.prime_set, p4.primes.len()), (four, 4));
         assert_eq!((p3.prime_set, p3.primes.len()), (PrimeSet::Three62, 3));
-        // One more residue store of 2^23 words in RAM.
+        // One more residue store of 2^24 words in RAM.
         assert_eq!(p4.ram_bytes - p3.ram_bytes, 8 * n);
         assert_eq!(p4.passes[0].name, "columns of A, four primes");
         assert_eq!(p4.passes.len(), p3.passes.len() + 3);
@@ -700,7 +700,7 @@ mod tests {
         assert_eq!(o4.scratch_bytes - o3.scratch_bytes, 8 * n);
         // One limb fewer in the shorter operand and three primes suffice:
         // the same stores as the 62-bit set, on the same shape.
-        let mut r = req(1 << 22, 4_192_768);
+        let mut r = req(1 << 23, 8_385_533);
         r.primes = four;
         let t = plan(&r).unwrap();
         assert_eq!(t.prime_set, PrimeSet::Three50(crate::ntt50::Kernel::Scalar));

@@ -13,10 +13,12 @@
 //!   ([`crate::ntt50::primes::coefficient_bound_holds`] checks it exactly,
 //!   and a compile-time assertion below checks it at that limit).
 //! - [`PrimeSet::Three50`]: the first three of those primes (product about
-//!   2^149.9995), exact while the shorter operand has at most 4_192_768
-//!   limbs in base 2^64 or 14_267_250 in base 10^19
-//!   ([`crate::ntt50::primes::bound_holds_for_first`]). The planner takes
-//!   it whenever the bound holds: a quarter less transform work and memory.
+//!   2^149.9995), exact while the shorter operand has at most 8_385_533
+//!   limbs in base 2^64 or 28_534_498 in base 10^19, because the 50-bit
+//!   sets transform balanced digits
+//!   ([`crate::ntt50::primes::balanced_bound_holds_for_first`]). The
+//!   planner takes it whenever the bound holds: a quarter less transform
+//!   work and memory.
 //!
 //! The vector paths make a butterfly three to five times cheaper than the
 //! 62-bit scalar one, more than paying for the fourth prime; the 50-bit
@@ -183,9 +185,20 @@ impl PrimeSet {
                 crate::arith::primes::coefficient_bound_holds(terms, radix.max_limb())
             }
             PrimeSet::Four50(_) | PrimeSet::Three50(_) => {
-                ntt50::primes::bound_holds_for_first(self.count(), terms as u128, radix.max_limb())
+                ntt50::primes::balanced_bound_holds_for_first(
+                    self.count(),
+                    terms as u128,
+                    radix.half_base(),
+                )
             }
         }
+    }
+
+    /// True when the set's transforms take the operands as balanced digits
+    /// (signed, at most half the radix in size) and its CRT gives signed
+    /// coefficients: the 50-bit sets, whose bound this halves.
+    pub fn balanced_digits(self) -> bool {
+        !matches!(self, PrimeSet::Three62)
     }
 
     /// A description for the plan's printout.
@@ -242,21 +255,22 @@ mod tests {
     }
 
     /// Three of the 50-bit primes exactly where their bound holds: up to
-    /// 4_192_768 binary and 14_267_250 decimal limbs in the shorter operand.
+    /// 8_385_533 binary and 28_534_498 decimal limbs in the shorter operand.
     #[test]
     fn three_primes_are_fitted_up_to_their_bound() {
         let four = PrimeSet::Four50(Kernel::Scalar);
         let three = PrimeSet::Three50(Kernel::Scalar);
         assert_eq!(three.count(), 3);
         assert_eq!(three.primes(), four.primes()[..3]);
-        for (limit, radix) in [(4_192_768, Radix::Binary), (14_267_250, Radix::Decimal)] {
+        for (limit, radix) in [(8_385_533, Radix::Binary), (28_534_498, Radix::Decimal)] {
             assert_eq!(four.fitted(1, radix), three);
             assert_eq!(four.fitted(limit, radix), three);
             assert_eq!(three.fitted(limit + 1, radix), four);
             assert_eq!(four.fitted(limit + 1, radix), four);
         }
-        // 2^28-bit operands (2^22 limbs) just miss it.
-        assert_eq!(four.fitted(1 << 22, Radix::Binary), four);
+        // 2^28-bit operands (2^22 limbs) fit; 2^29-bit ones just miss it.
+        assert_eq!(four.fitted(1 << 22, Radix::Binary), three);
+        assert_eq!(four.fitted(1 << 23, Radix::Binary), four);
         assert_eq!(
             PrimeSet::Three62.fitted(1, Radix::Binary),
             PrimeSet::Three62

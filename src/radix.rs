@@ -32,6 +32,15 @@ impl Radix {
         }
     }
 
+    /// Half the limb base (2^63 or 5 * 10^18): limbs at or above it become
+    /// negative balanced digits (see [`crate::fourstep`]).
+    pub fn half_base(self) -> u64 {
+        match self {
+            Radix::Binary => 1 << 63,
+            Radix::Decimal => DEC_BASE / 2,
+        }
+    }
+
     /// A short lowercase name used in reports and errors.
     pub fn name(self) -> &'static str {
         match self {

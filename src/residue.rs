@@ -370,6 +370,10 @@ impl<L: LimbSource + ?Sized> LimbSource for TapM61<'_, L> {
     fn prefetch_limbs(&self, first: usize, n: usize) {
         self.inner.prefetch_limbs(first, n)
     }
+
+    fn peek_limb(&self, i: usize) -> u64 {
+        self.inner.peek_limb(i)
+    }
 }
 
 /// Accumulates the residue modulo `p` of a number whose limbs arrive as

@@ -25,7 +25,7 @@ use std::sync::Mutex;
 
 /// Version of the state's layout (manifest, journal, scratch files). State
 /// of another version is refused, never reinterpreted.
-pub const STATE_VERSION: u32 = 2;
+pub const STATE_VERSION: u32 = 3;
 
 /// What identifies an operand file.
 #[derive(Clone, Debug, PartialEq, Eq, Serialize, Deserialize)]

@@ -78,6 +78,16 @@ pub trait LimbSource: Sync {
     /// A hint that limbs `first..first + n` will be read soon; sources on
     /// disk start reading them in the background. Never required.
     fn prefetch_limbs(&self, _first: usize, _n: usize) {}
+
+    /// Limb `i`, looked at rather than consumed: the column pass reads each
+    /// segment's left neighbour for its balanced digit's carry. Sources
+    /// that account for what they read (residue taps, meters) pass it to
+    /// their inner source uncounted.
+    fn peek_limb(&self, i: usize) -> u64 {
+        let mut x = [0u64];
+        self.fill_limbs(i, &mut x);
+        x[0]
+    }
 }
 
 impl LimbSource for [u64] {

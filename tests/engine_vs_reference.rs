@@ -902,29 +902,42 @@ fn plans_follow_the_forced_kernel() {
     eprintln!("plans_follow_the_forced_kernel: {:?}", p.prime_set);
 }
 
-/// Three 50-bit primes hold coefficients up to 4_192_768 terms of maximal
-/// binary limbs, and the planner takes them up to exactly there: the
-/// square of `B^n - 1` for that `n` has the largest coefficients three
-/// primes may ever carry (`n (B - 1)^2`, within 2^-0.0005 of their
-/// product), and must equal `B^2n - 2 B^n + 1` limb for limb. One limb
-/// more and the plan takes four primes.
+/// Limbs `half, half - 1, half, half - 1, ...`: their balanced digits
+/// alternate `-half, +half`, so the square's coefficients are as large as
+/// balanced digits allow, positive at even positions and negative at odd
+/// ones.
+fn alternating_halves(n: usize, radix: Radix) -> Vec<u64> {
+    let h = radix.half_base();
+    (0..n)
+        .map(|i| if i.is_multiple_of(2) { h } else { h - 1 })
+        .collect()
+}
+
+/// Three 50-bit primes hold coefficients up to 8_385_533 terms of balanced
+/// binary digits, and the planner takes them up to exactly there. At that
+/// length, the square of `B^n - 1` (every digit -1 but the top one, which
+/// is the whole base) must equal `B^2n - 2 B^n + 1` limb for limb, and the
+/// square of alternating halves, whose coefficients reach
+/// `(n + 1) (B / 2)^2` in size with both signs, within 2^-0.0005 of what
+/// the bound allows, must match the reference's residues. One limb more
+/// and the plan takes four primes.
 #[test]
 fn three_fifty_bit_primes_are_exact_up_to_their_bound() {
-    use vastmul::ntt50::primes::MAX_EXACT_TERMS_THREE;
+    use vastmul::ntt50::primes::MAX_BALANCED_TERMS_THREE;
     let Some(kernel) = PrimeSet::detect().kernel() else {
         println!("skipped: no vector kernel here; the scalar path is covered by the kernel script");
         return;
     };
-    let n = MAX_EXACT_TERMS_THREE as usize;
-    let a = radix_power_minus_one(n, Radix::Binary);
+    let n = MAX_BALANCED_TERMS_THREE as usize;
     let mut r = Request::in_memory(n, n, Radix::Binary, false, 2, Force::Ntt);
     r.primes = PrimeSet::Four50(kernel);
     assert_eq!(plan(&r).unwrap().prime_set, PrimeSet::Three50(kernel));
     let mut r1 = Request::in_memory(n + 1, n + 1, Radix::Binary, false, 2, Force::Ntt);
     r1.primes = PrimeSet::Three50(kernel);
     assert_eq!(plan(&r1).unwrap().prime_set, PrimeSet::Four50(kernel));
-    let got =
-        vastmul::engine::multiply_on(&a, &a, Radix::Binary, Force::Ntt, PrimeSet::Three50(kernel));
+    let three = PrimeSet::Three50(kernel);
+    let a = radix_power_minus_one(n, Radix::Binary);
+    let got = vastmul::engine::multiply_on(&a, &a, Radix::Binary, Force::Ntt, three);
     // (B^n - 1)^2 = 1, then n - 1 zero limbs, B - 2, then n - 1 maximal limbs.
     assert_eq!(got.len(), 2 * n);
     assert_eq!(got[0], 1);
@@ -932,4 +945,42 @@ fn three_fifty_bit_primes_are_exact_up_to_their_bound() {
     assert_eq!(got[n], u64::MAX - 1);
     assert!(got[n + 1..].iter().all(|&x| x == u64::MAX), "maximal run");
     Fingerprint::new(8).assert_product(&got, &a, &a, Radix::Binary, "three-prime bound");
+    drop(got);
+    let a = alternating_halves(n, Radix::Binary);
+    let got = vastmul::engine::multiply_on(&a, &a, Radix::Binary, Force::Ntt, three);
+    Fingerprint::new(8).assert_product(&got, &a, &a, Radix::Binary, "alternating halves");
+}
+
+/// Balanced digits on every 50-bit set against num-bigint, in both radixes:
+/// limbs just below, at and above half the base (alternating, constant,
+/// and mixed with maximal and zero limbs), whose digits and carries are
+/// the edge cases of the digit form, on lengths around column-block and
+/// row boundaries; products of unequal operands too.
+#[test]
+fn balanced_digit_edges_match_reference() {
+    for set in PrimeSet::all_supported() {
+        if !set.balanced_digits() {
+            continue;
+        }
+        for radix in [Radix::Binary, Radix::Decimal] {
+            let h = radix.half_base();
+            let max = radix.max_limb();
+            for &n in &[1usize, 2, 3, 17, 4095, 4096, 4097, 70_001] {
+                let alt = alternating_halves(n, radix);
+                let at: Vec<u64> = vec![h; n];
+                let below: Vec<u64> = vec![h - 1; n];
+                let mixed: Vec<u64> = (0..n)
+                    .map(|i| [h, h - 1, max, 0, h + 1, max, h][i % 7])
+                    .collect();
+                for (x, y) in [(&alt, &alt), (&at, &at), (&below, &at), (&mixed, &alt)] {
+                    let got = vastmul::engine::multiply_on(x, y, radix, Force::Ntt, set);
+                    assert_product(&got, x, y, radix, &format!("{set:?} {radix:?} n={n}"));
+                }
+                let short = &mixed[..n.div_ceil(3)];
+                let got = vastmul::engine::multiply_on(&alt, short, radix, Force::Ntt, set);
+                let what = format!("{set:?} {radix:?} unequal n={n}");
+                assert_product(&got, &alt, short, radix, &what);
+            }
+        }
+    }
 }

@@ -40,6 +40,8 @@ pub struct Crt50 {
     /// `c[i][j] = P_j / P_i mod p_i` for `j < i`: the weight with which
     /// `y_j` is taken off `y_i`.
     c: [[MulConst; K]; K],
+    /// Whether values are signed ([`Crt50::signed_values`]).
+    signed: bool,
 }
 
 impl Crt50 {
@@ -71,7 +73,22 @@ impl Crt50 {
                 c[i][j] = MulConst::new(mi.mul(prefix[j], inv_pi), mi);
             }
         }
-        Crt50 { m, s, c }
+        Crt50 {
+            m,
+            s,
+            c,
+            signed: false,
+        }
+    }
+
+    /// The same constants, for signed values: [`Crt50::coefficients_checked`]
+    /// then gives the value `v` in `[0, P)` as `v - P` when
+    /// `v > (P - 1) / 2` (`P` the product of the primes combined), in
+    /// 192-bit two's complement; a value that does not fit 192 bits so is
+    /// reported as corrupted.
+    pub fn signed_values(mut self) -> Self {
+        self.signed = true;
+        self
     }
 
     /// Constants for the residues an inverse transform of length `n`
@@ -185,6 +202,7 @@ impl Crt50 {
             "residue slices and output differ in length"
         );
         let three = residues.len() == 3;
+        let modulus = super::primes::product_of_first(residues.len());
         let mut bad = 0u64;
         // The fourth slot stays zero for three residues.
         let mut r = [[0u64; DIGIT_BLOCK]; K];
@@ -207,8 +225,20 @@ impl Crt50 {
                 y[3][..len].fill(0);
             }
             for (k, o) in out[first..first + len].iter_mut().enumerate() {
-                let [w0, w1, w2, w3] = self.value_of_digits([y[0][k], y[1][k], y[2][k], y[3][k]]);
-                bad |= w3 << 52;
+                let v = self.value_of_digits([y[0][k], y[1][k], y[2][k], y[3][k]]);
+                let [w0, w1, w2, w3] = if self.signed {
+                    to_signed(v, &modulus)
+                } else {
+                    v
+                };
+                // The top word must be the sign extension of the 192 bits
+                // (zero for unsigned values).
+                let sign = if self.signed {
+                    ((w2 as i64) >> 63) as u64
+                } else {
+                    0
+                };
+                bad |= ((w3 != sign) as u64) << 52;
                 *o = [w0, w1, w2];
             }
         }
@@ -259,6 +289,38 @@ impl Crt50 {
             }
         }
     }
+}
+
+/// `v` in `[0, modulus)` as the signed value `v - modulus` when it exceeds
+/// `(modulus - 1) / 2` (`modulus` odd), in 256-bit two's complement;
+/// without branches, as the signs of coefficients are unpredictable.
+#[inline(always)]
+fn to_signed(v: [u64; 4], modulus: &[u64; 4]) -> [u64; 4] {
+    // v > (modulus - 1) / 2  <=>  2v >= modulus + 1  <=>  2v > modulus,
+    // and 2v < 2^201 fits 256 bits.
+    let twice = [
+        v[0] << 1,
+        v[1] << 1 | v[0] >> 63,
+        v[2] << 1 | v[1] >> 63,
+        v[3] << 1 | v[2] >> 63,
+    ];
+    // modulus - 2v borrows exactly when 2v > modulus
+    let mut borrow = false;
+    for i in 0..4 {
+        let (d, b1) = modulus[i].overflowing_sub(twice[i]);
+        let (_, b2) = d.overflowing_sub(borrow as u64);
+        borrow = b1 | b2;
+    }
+    let mask = (borrow as u64).wrapping_neg();
+    let mut out = [0u64; 4];
+    let mut borrow = false;
+    for i in 0..4 {
+        let (d, b1) = v[i].overflowing_sub(modulus[i] & mask);
+        let (d, b2) = d.overflowing_sub(borrow as u64);
+        out[i] = d;
+        borrow = b1 | b2;
+    }
+    out
 }
 
 /// `a * b + c` for `a < 2^100`, `b, c < 2^64`, as a low u128 and a high

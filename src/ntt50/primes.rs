@@ -26,9 +26,14 @@
 //!
 //! The first three primes alone (product `P_3` about 2^149.9995) are exact
 //! for up to [`MAX_EXACT_TERMS_THREE`] terms of base-2^64 limbs (just below
-//! 2^22) and 14_267_250 terms of base-10^19 limbs: the planner uses three
-//! when the shorter operand allows it, which saves a quarter of the
-//! transforms and of the memory ([`bound_holds_for_first`]).
+//! 2^22) and 14_267_250 terms of base-10^19 limbs ([`bound_holds_for_first`]).
+//! The engine feeds these primes balanced digits (each limb as a signed
+//! digit of at most half the radix, see [`balanced_bound_holds_for_first`]),
+//! which quarters the size of a coefficient's terms and so doubles those
+//! limits: [`MAX_BALANCED_TERMS_THREE`] (about 2^23) binary and
+//! [`MAX_BALANCED_TERMS_THREE_DECIMAL`] decimal limbs. The planner uses three
+//! primes when the shorter operand allows it, which saves a quarter of the
+//! transforms and of the memory.
 
 use super::Modulus50;
 
@@ -175,6 +180,73 @@ pub const fn bound_holds_for_first(count: usize, terms: u128, max_limb: u64) -> 
     assert!(hi[3] == 0, "256-bit overflow");
     less_than(add_words(lo, hi_shifted), product_of_first(count))
 }
+
+/// The largest number of terms per coefficient for which a convolution of
+/// base-2^64 limbs in balanced digits (module [`crate::fourstep`]'s digit
+/// form) is exact modulo the first three primes: about 2^23, twice the
+/// plain form's [`MAX_EXACT_TERMS_THREE`]. For base-10^19 limbs the limit
+/// is [`MAX_BALANCED_TERMS_THREE_DECIMAL`].
+pub const MAX_BALANCED_TERMS_THREE: u128 = 8_385_533;
+
+/// [`MAX_BALANCED_TERMS_THREE`] for base-10^19 limbs.
+pub const MAX_BALANCED_TERMS_THREE_DECIMAL: u128 = 28_534_498;
+
+/// True when a convolution of balanced digits of limbs in base
+/// `2 * half` (2^64: `half = 2^63`; 10^19: `half = 5 * 10^18`) with at most
+/// `terms` products per coefficient is recovered exactly, as a signed
+/// value, from its residues modulo the first `count` primes.
+///
+/// # Why
+/// A balanced digit is `x_i + t_(i-1) - 2 half t_i` with
+/// `t_i = [x_i >= half]`, so it lies in `[-half, half]`; the top digit
+/// keeps its carry in and no carry out, so it lies in `[0, 2 half]`. A
+/// coefficient `c_k = sum d_i e_(k-i)` has at most `m = terms` terms, of
+/// which at most one involves the first operand's top digit and one the
+/// second's (each at most `2 half^2` in size); the single term of two top
+/// digits (`4 half^2`) stands alone in its coefficient. So
+/// `|c_k| <= max(m + 2, 4) half^2 <= (m + 3) half^2`. The CRT leaves the
+/// residue class of `c_k` as a value `v` in `[0, P)`; taking `v - P` for
+/// `v > (P - 1) / 2` recovers every integer of size at most `(P - 1) / 2`,
+/// so it suffices that `2 (m + 3) half^2 < P`, which this checks exactly.
+pub const fn balanced_bound_holds_for_first(count: usize, terms: u128, half: u64) -> bool {
+    let sq = 2 * (half as u128 * half as u128);
+    let sq_words = [sq as u64, (sq >> 64) as u64, 0, 0];
+    let t = terms + 3;
+    let lo = mul_word(sq_words, t as u64);
+    let hi = mul_word(sq_words, (t >> 64) as u64);
+    let hi_shifted = [0, hi[0], hi[1], hi[2]];
+    assert!(hi[3] == 0, "256-bit overflow");
+    less_than(add_words(lo, hi_shifted), product_of_first(count))
+}
+
+const _: () = assert!(balanced_bound_holds_for_first(
+    3,
+    MAX_BALANCED_TERMS_THREE,
+    1 << 63
+));
+const _: () = assert!(!balanced_bound_holds_for_first(
+    3,
+    MAX_BALANCED_TERMS_THREE + 1,
+    1 << 63
+));
+const _: () = assert!(balanced_bound_holds_for_first(
+    3,
+    MAX_BALANCED_TERMS_THREE_DECIMAL,
+    5_000_000_000_000_000_000
+));
+const _: () = assert!(!balanced_bound_holds_for_first(
+    3,
+    MAX_BALANCED_TERMS_THREE_DECIMAL + 1,
+    5_000_000_000_000_000_000
+));
+// The four primes in balanced digits, at their longest transform.
+const _: () = assert!(balanced_bound_holds_for_first(
+    4,
+    MAX_TRANSFORM_LEN as u128,
+    1 << 63
+));
+// 2^28-bit operands (2^22 limbs) take three primes in balanced digits.
+const _: () = assert!(balanced_bound_holds_for_first(3, 1 << 22, 1 << 63));
 
 const _: () = assert!(bound_holds_for_first(3, MAX_EXACT_TERMS_THREE, u64::MAX));
 const _: () = assert!(!bound_holds_for_first(
