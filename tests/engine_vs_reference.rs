@@ -915,12 +915,14 @@ fn alternating_halves(n: usize, radix: Radix) -> Vec<u64> {
 
 /// Three 50-bit primes hold coefficients up to 8_385_533 terms of balanced
 /// binary digits, and the planner takes them up to exactly there. At that
-/// length, the square of `B^n - 1` (every digit -1 but the top one, which
-/// is the whole base) must equal `B^2n - 2 B^n + 1` limb for limb, and the
-/// square of alternating halves, whose coefficients reach
-/// `(n + 1) (B / 2)^2` in size with both signs, within 2^-0.0005 of what
-/// the bound allows, must match the reference's residues. One limb more
-/// and the plan takes four primes.
+/// length the square of alternating halves, whose coefficients reach
+/// `n (B / 2)^2` in size with both signs (less than a millionth below half the
+/// primes' product, the most the signed recovery takes), must match the
+/// reference's residues. The square of `B^n - 1` (digits -1, then zeros,
+/// then the whole base on top) must equal `B^2n - 2 B^n + 1` limb for limb;
+/// as plain limbs its coefficients would exceed the three primes' product,
+/// so it fails if the digits are not balanced. One limb more and the plan
+/// takes four primes.
 #[test]
 fn three_fifty_bit_primes_are_exact_up_to_their_bound() {
     use vastmul::ntt50::primes::MAX_BALANCED_TERMS_THREE;

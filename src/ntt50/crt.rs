@@ -84,8 +84,8 @@ impl Crt50 {
     /// The same constants, for signed values: [`Crt50::coefficients_checked`]
     /// then gives the value `v` in `[0, P)` as `v - P` when
     /// `v > (P - 1) / 2` (`P` the product of the primes combined), in
-    /// 192-bit two's complement; a value that does not fit 192 bits so is
-    /// reported as corrupted.
+    /// 192-bit two's complement. A signed value that does not fit 192 bits
+    /// is reported as corrupted, as an unsigned one of 2^192 or more is.
     pub fn signed_values(mut self) -> Self {
         self.signed = true;
         self

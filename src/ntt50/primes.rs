@@ -171,11 +171,15 @@ pub const fn coefficient_bound_holds(terms: u128, max_limb: u64) -> bool {
 /// [`coefficient_bound_holds`] for the product of the first `count` primes:
 /// a convolution whose coefficients need only `count` residues.
 pub const fn bound_holds_for_first(count: usize, terms: u128, max_limb: u64) -> bool {
-    let sq = max_limb as u128 * max_limb as u128;
-    let sq_words = [sq as u64, (sq >> 64) as u64, 0, 0];
-    // terms * sq, split into terms' two words so each step multiplies by one
-    let lo = mul_word(sq_words, terms as u64);
-    let hi = mul_word(sq_words, (terms >> 64) as u64);
+    product_below_primes(count, terms, max_limb as u128 * max_limb as u128)
+}
+
+/// `terms * term < P_count`, exactly in 256 bits.
+const fn product_below_primes(count: usize, terms: u128, term: u128) -> bool {
+    let term_words = [term as u64, (term >> 64) as u64, 0, 0];
+    // terms * term, split into terms' two words so each step multiplies by one
+    let lo = mul_word(term_words, terms as u64);
+    let hi = mul_word(term_words, (terms >> 64) as u64);
     let hi_shifted = [0, hi[0], hi[1], hi[2]];
     assert!(hi[3] == 0, "256-bit overflow");
     less_than(add_words(lo, hi_shifted), product_of_first(count))
@@ -209,14 +213,7 @@ pub const MAX_BALANCED_TERMS_THREE_DECIMAL: u128 = 28_534_498;
 /// `v > (P - 1) / 2` recovers every integer of size at most `(P - 1) / 2`,
 /// so it suffices that `2 (m + 3) half^2 < P`, which this checks exactly.
 pub const fn balanced_bound_holds_for_first(count: usize, terms: u128, half: u64) -> bool {
-    let sq = 2 * (half as u128 * half as u128);
-    let sq_words = [sq as u64, (sq >> 64) as u64, 0, 0];
-    let t = terms + 3;
-    let lo = mul_word(sq_words, t as u64);
-    let hi = mul_word(sq_words, (t >> 64) as u64);
-    let hi_shifted = [0, hi[0], hi[1], hi[2]];
-    assert!(hi[3] == 0, "256-bit overflow");
-    less_than(add_words(lo, hi_shifted), product_of_first(count))
+    product_below_primes(count, terms + 3, 2 * (half as u128 * half as u128))
 }
 
 const _: () = assert!(balanced_bound_holds_for_first(
