@@ -208,17 +208,21 @@ where
     let stores_a: Vec<RamStore> = (0..fs.prime_count()).map(|_| RamStore::zeroed(n)).collect();
     let spare = (!plan.square).then(|| RamStore::zeroed(n.max(plan.product_limbs)));
     // B is read once per prime: decode it once (text parsing is not free),
-    // and let the column passes copy from the decoded limbs.
+    // and let the column passes copy from the decoded limbs. A mapped
+    // buffer (huge pages where the kernel has them) faults in faster than
+    // a heap vector of the same size.
     let b_limbs = if plan.square {
-        Vec::new()
+        WordBuf::zeroed(0)
     } else {
-        read_all(b, lb)
+        let mut w = WordBuf::zeroed(lb);
+        read_into(b, 0, &mut w);
+        w
     };
     transform_passes(
         &fs,
         (la, lb, plan.square),
         a,
-        &b_limbs,
+        &b_limbs[..],
         &stores_a,
         spare.as_ref(),
         timer,

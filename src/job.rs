@@ -5,13 +5,14 @@ use crate::engine::{self, LimbSource};
 use crate::engine::{PassTime, Product, Timer};
 use crate::faults::FaultySpace;
 use crate::format::{
-    format_radix_compatible, write_operand_file, write_text_file_from, Format, Operand, Released,
+    format_radix_compatible, write_operand_file, write_text_file_from, Format, LimbFeed, Operand,
+    Released,
 };
 use crate::ooc::{OutOfCore, Space};
 use crate::output::{ensure_distinct, AtomicOutput};
 use crate::plan::{self, Algorithm, Force, Plan, Request};
 use crate::progress::{phase, METER};
-use crate::residue::{mul_mod, residue_m61, signed, ResidueTap, TapM61, MERSENNE_61};
+use crate::residue::{mul_mod, residue_m61, signed, ResidueTap, TapM61, FIXED_MODULI, MERSENNE_61};
 use crate::scratch::free_space;
 use crate::scratch::FileSpace;
 use crate::size::{default_budget, show_size};
@@ -688,8 +689,8 @@ pub fn multiply_files(opts: &MulOptions) -> Result<MulReport> {
     };
     let compute_seconds = compute.elapsed().as_secs_f64();
 
-    // The self-check: the factors' residues now, the product's from its
-    // limbs (in RAM) or as they are written (on disk).
+    // The self-check: the factors' residues now, the product's as it is
+    // written (the writer taps every limb once, for the manifest too).
     let mut product = product;
     let mut negative = negative;
     if let Some(t) = opts.tamper {
@@ -697,7 +698,6 @@ pub fn multiply_files(opts: &MulOptions) -> Result<MulReport> {
     }
     let check_start = Instant::now();
     let mut self_check = None;
-    let mut tap = None;
     if opts.self_check {
         let p = MERSENNE_61;
         let residue_of = |op: &Operand| {
@@ -715,26 +715,12 @@ pub fn multiply_files(opts: &MulOptions) -> Result<MulReport> {
                 (ra, if ops.b.is_some() { residue_of(b) } else { ra })
             }
         };
-        let rc = match &product {
-            Product::Ram(limbs) => Some(residue_m61(&limbs[..], limbs.len(), radix)),
-            Product::Disk { .. } => {
-                tap = Some(ResidueTap::new(p, radix));
-                None
-            }
-        };
         self_check = Some(SelfCheck {
             passed: false,
             modulus: p,
-            residues: [ra, rb, rc.unwrap_or(0)],
+            residues: [ra, rb, 0],
             seconds: 0.0,
         });
-        if let Some(rc) = rc {
-            verify_self_check(
-                self_check.as_mut().unwrap(),
-                rc,
-                negative && !product.is_empty(),
-            )?;
-        }
     }
     let mut check_seconds = check_start.elapsed().as_secs_f64();
 
@@ -742,31 +728,41 @@ pub fn multiply_files(opts: &MulOptions) -> Result<MulReport> {
     let target = opts.output.clone();
     METER.begin("write the product");
     METER.add_units(product.len() as u64, 0);
-    match &product {
-        Product::Ram(limbs) => write_operand_file(out.file(), out_format, radix, negative, limbs),
-        Product::Disk { store, len } => write_text_file_from(
+    // The top limb, for the manifest's digit count: read now, since a read
+    // that fails after the rename would leave a product without its
+    // manifest.
+    let top = match &product {
+        Product::Ram(limbs) => limbs.last().copied().unwrap_or(0),
+        Product::Disk { store, len } => {
+            let mut top = [0u64];
+            if *len > 0 {
+                store.read(len - 1, &mut top).map_err(|e| match &state {
+                    Some(st) => {
+                        with_state_note(e, &st.dir, "write the product: all computing done")
+                    }
+                    None => e,
+                })?;
+            }
+            top[0]
+        }
+    };
+    let tap = ResidueTap::fixed(radix);
+    let feed = ProductFeed {
+        product: &product,
+        tap: &tap,
+    };
+    let written = match &product {
+        Product::Ram(limbs) => write_operand_file(
             out.file(),
             out_format,
             radix,
             negative,
-            *len,
-            &|first, dst| {
-                if crate::interrupt::requested() {
-                    return Err(std::io::Error::new(
-                        std::io::ErrorKind::Interrupted,
-                        "stopped by a signal",
-                    ));
-                }
-                store
-                    .read(first, dst)
-                    .map_err(|e| std::io::Error::other(e.to_string()))?;
-                if let Some(t) = &tap {
-                    t.add(first, dst);
-                }
-                METER.advance(dst.len() as u64);
-                Ok(())
-            },
+            limbs,
+            &|first, limbs| feed.seen(first, limbs),
         ),
+        Product::Disk { len, .. } => {
+            write_text_file_from(out.file(), out_format, radix, negative, *len, &feed)
+        }
     }
     .map_err(|e| {
         let e = if crate::interrupt::requested() {
@@ -793,34 +789,29 @@ pub fn multiply_files(opts: &MulOptions) -> Result<MulReport> {
             },
         }
     })?;
-    if let Product::Ram(limbs) = &product {
-        METER.advance(limbs.len() as u64);
-    }
     METER.end();
-    if let (Some(t), Some(sc)) = (&tap, self_check.as_mut()) {
-        let t0 = Instant::now();
-        verify_self_check(sc, t.value(), negative && !product.is_empty())?;
-        check_seconds += t0.elapsed().as_secs_f64();
-    }
+    let product_residues = tap.values();
     if let Some(sc) = self_check.as_mut() {
+        let t0 = Instant::now();
+        verify_self_check(sc, product_residues[0], negative && !product.is_empty())?;
+        check_seconds += t0.elapsed().as_secs_f64();
         sc.seconds = check_seconds;
     }
     out.commit()?;
-    // The manifest beside the product: read back from the file as written.
+    // The manifest beside the product: its BLAKE3 is that of the bytes the
+    // writer wrote, its residues those the writer tapped.
     let manifest_start = Instant::now();
     let product_manifest = phase("write the manifest", || {
-        let known = match &product {
-            Product::Ram(limbs) => Some(crate::manifest::describe_written(
-                &opts.output,
-                out_format,
-                radix,
-                negative,
-                limbs,
-            )?),
-            // Out of core the product is re-read in released windows.
-            Product::Disk { .. } => None,
-        };
-        crate::manifest::write_for(&opts.output, Some(out_format), known)
+        let m = crate::manifest::describe_written(
+            &opts.output,
+            out_format,
+            radix,
+            negative,
+            (product.len(), top),
+            written,
+            &product_residues,
+        );
+        crate::manifest::write_for(&opts.output, m)
     })?;
     let manifest_seconds = manifest_start.elapsed().as_secs_f64();
     let mut operands = Vec::new();
@@ -865,6 +856,46 @@ pub fn multiply_files(opts: &MulOptions) -> Result<MulReport> {
         peak_rss_bytes: crate::usage::peak_rss_bytes(),
         io: crate::usage::process_io(),
     })
+}
+
+/// The self-check's modulus is the first of the manifest's, so one tap
+/// serves both.
+const _: () = assert!(FIXED_MODULI[0] == MERSENNE_61);
+
+/// The limbs of a product as the writer takes them: read from RAM or from
+/// its store (a signal stops the reading of a long one), and tapped as they
+/// are written for the self-check's and the manifest's residues and for
+/// progress.
+struct ProductFeed<'a> {
+    product: &'a Product,
+    tap: &'a ResidueTap,
+}
+
+impl LimbFeed for ProductFeed<'_> {
+    fn read(&self, first: usize, dst: &mut [u64]) -> std::io::Result<()> {
+        match self.product {
+            Product::Ram(limbs) => {
+                dst.copy_from_slice(&limbs[first..first + dst.len()]);
+                Ok(())
+            }
+            Product::Disk { store, .. } => {
+                if crate::interrupt::requested() {
+                    return Err(std::io::Error::new(
+                        std::io::ErrorKind::Interrupted,
+                        "stopped by a signal",
+                    ));
+                }
+                store
+                    .read(first, dst)
+                    .map_err(|e| std::io::Error::other(e.to_string()))
+            }
+        }
+    }
+
+    fn seen(&self, first: usize, limbs: &[u64]) {
+        self.tap.add(first, limbs);
+        METER.advance(limbs.len() as u64);
+    }
 }
 
 /// Compares the product's residue (of its magnitude) with its factors';

@@ -4,7 +4,7 @@
 //! bit rot (`vastmul check --file NAME`) and `vastmul check A B NAME` can
 //! cross-check the product against what was written.
 
-use crate::format::{Format, Operand, Released};
+use crate::format::{Format, Operand, Released, Written};
 use crate::residue::{residues, signed, FIXED_MODULI};
 use crate::{Error, Radix, Result};
 use serde::{Deserialize, Serialize};
@@ -99,50 +99,39 @@ pub fn describe(path: &Path, format: Option<Format>) -> Result<Manifest> {
     ))
 }
 
-/// The manifest of a product just written from `limbs` in RAM: the
-/// residues come from the limbs (no second parse of the file), the BLAKE3
-/// from the file as written.
+/// The manifest of a product just written: `len` significant limbs with
+/// `top` the highest, `written` what the writer reports of the bytes it
+/// wrote, `residues` those of the magnitude modulo [`FIXED_MODULI`] (taken
+/// from the limbs as they were written, so the file is not parsed again).
 pub fn describe_written(
     path: &Path,
     format: Format,
     radix: Radix,
     negative: bool,
-    limbs: &[u64],
-) -> Result<Manifest> {
-    let bytes = std::fs::metadata(path)
-        .map_err(|e| Error::io(path, e))?
-        .len();
-    let hash = blake3::Hasher::new()
-        .update_mmap_rayon(path)
-        .map_err(|e| Error::io(path, e))?
-        .finalize();
-    let n = limbs.len();
-    let digits = match (n, radix) {
+    (len, top): (usize, u64),
+    written: Written,
+    residues: &[u64],
+) -> Manifest {
+    let digits = match (len, radix) {
         (0, _) => 1,
-        (_, Radix::Decimal) => 19 * (n as u64 - 1) + limbs[n - 1].to_string().len() as u64,
-        (_, Radix::Binary) => 16 * (n as u64 - 1) + format!("{:x}", limbs[n - 1]).len() as u64,
+        (_, Radix::Decimal) => 19 * (len as u64 - 1) + top.to_string().len() as u64,
+        (_, Radix::Binary) => 16 * (len as u64 - 1) + format!("{top:x}").len() as u64,
     };
-    let r = residues(limbs, n, radix, &FIXED_MODULI);
-    Ok(assemble(
+    assemble(
         path,
-        bytes,
+        written.bytes,
         format,
         radix,
-        negative && n > 0,
-        (n as u64, digits),
-        hash,
-        &r,
-    ))
+        negative && len > 0,
+        (len as u64, digits),
+        written.blake3,
+        residues,
+    )
 }
 
-/// Writes the manifest of the product at `path`, atomically (temporary
-/// file, fsync, rename), replacing an older one; `known` is the manifest
-/// when the caller already has it, else it is read from the file.
-pub fn write_for(path: &Path, format: Option<Format>, known: Option<Manifest>) -> Result<Manifest> {
-    let m = match known {
-        Some(m) => m,
-        None => describe(path, format)?,
-    };
+/// Writes the manifest `m` of the product at `path`, atomically
+/// (temporary file, fsync, rename), replacing an older one.
+pub fn write_for(path: &Path, m: Manifest) -> Result<Manifest> {
     let target = path_for(path);
     let mut tmp_name = std::ffi::OsString::from(".");
     tmp_name.push(target.file_name().unwrap_or_default());

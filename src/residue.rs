@@ -376,44 +376,106 @@ impl<L: LimbSource + ?Sized> LimbSource for TapM61<'_, L> {
     }
 }
 
-/// Accumulates the residue modulo `p` of a number whose limbs arrive as
-/// windows in any order and from many threads (the product as it is
-/// written): each window adds `base^first * value(window)`.
-pub struct ResidueTap {
-    h: Horner,
-    base: u64,
-    acc: std::sync::atomic::AtomicU64,
+/// The residue of `limbs` (below 2^63, not fully reduced) modulo
+/// `p = 2^K - C`, with `w = [base, base^2, base^3]` modulo `p`.
+///
+/// Horner's rule takes three limbs a step, `r w_3 + l_2 w_2 + l_1 w_1 +
+/// l_0`: the three products are independent, so a step costs about one
+/// multiplication a limb, and the sum (below `2^125 + 2^127 + 2^64 <
+/// 2^128` for `r < 2^63`) is folded twice with `2^K = C (mod p)`: the
+/// first fold leaves less than `2^(128 - K) C + 2^K < 2^74`, the second
+/// less than `2^K + 2^22 < 2^63`. Four parts of the limbs run side by side
+/// as independent chains.
+#[inline(always)]
+fn pseudo_mersenne_residue<const K: u32, const C: u64>(limbs: &[u64], w: [u64; 3]) -> u64 {
+    #[inline(always)]
+    fn fold<const K: u32, const C: u64>(s: u128) -> u128 {
+        (s >> K) * C as u128 + (s & ((1u128 << K) - 1))
+    }
+    #[inline(always)]
+    fn step<const K: u32, const C: u64>(r: u64, l: [u64; 3], w: [u64; 3]) -> u64 {
+        let s = r as u128 * w[2] as u128
+            + l[2] as u128 * w[1] as u128
+            + l[1] as u128 * w[0] as u128
+            + l[0] as u128;
+        fold::<K, C>(fold::<K, C>(s)) as u64
+    }
+    const CHAINS: usize = 4;
+    let p = (1u64 << K) - C;
+    // Limbs above a multiple of 3 * CHAINS come first, one at a time.
+    let whole = limbs.len() / (3 * CHAINS) * (3 * CHAINS);
+    let mut r = [0u64; CHAINS];
+    for &l in limbs[whole..].iter().rev() {
+        r[CHAINS - 1] = fold::<K, C>(fold::<K, C>(
+            r[CHAINS - 1] as u128 * w[0] as u128 + l as u128,
+        )) as u64;
+    }
+    let part = whole / CHAINS;
+    let parts: [&[u64]; CHAINS] = core::array::from_fn(|j| &limbs[j * part..(j + 1) * part]);
+    for i in (0..part / 3).rev() {
+        for (rj, pj) in r.iter_mut().zip(&parts) {
+            let l = &pj[3 * i..3 * i + 3];
+            *rj = step::<K, C>(*rj, [l[0], l[1], l[2]], w);
+        }
+    }
+    let shift = Modulus::new(p).pow(w[0], part as u64);
+    r.iter()
+        .rev()
+        .fold(0u64, |acc, &rj| (mul_mod(acc, shift, p) + rj % p) % p)
 }
 
+/// Accumulates the residues modulo [`FIXED_MODULI`] of a number whose
+/// limbs arrive as windows in any order and from many threads (the product
+/// as it is written): each window adds `base^first * value(window)`.
+pub struct ResidueTap {
+    /// `[base, base^2, base^3]` modulo each fixed modulus.
+    w: [[u64; 3]; 3],
+    acc: [std::sync::atomic::AtomicU64; 3],
+}
+
+// The tap's constant folds assume these forms.
+const _: () = assert!(
+    FIXED_MODULI[0] == (1 << 61) - 1
+        && FIXED_MODULI[1] == (1 << 62) - 57
+        && FIXED_MODULI[2] == (1 << 62) - 87
+);
+
 impl ResidueTap {
-    /// A tap modulo the odd prime `p < 2^62` for limbs in `radix`.
-    pub fn new(p: u64, radix: Radix) -> Self {
-        let h = Horner::new(p, radix);
+    /// A tap modulo each of [`FIXED_MODULI`] for limbs in `radix`.
+    pub fn fixed(radix: Radix) -> Self {
         ResidueTap {
-            h,
-            base: h.m.mont_mul(h.base_mont, 1),
-            acc: std::sync::atomic::AtomicU64::new(0),
+            w: FIXED_MODULI.map(|p| {
+                let base = match radix {
+                    Radix::Binary => ((1u128 << 64) % p as u128) as u64,
+                    Radix::Decimal => DEC_BASE % p,
+                };
+                let b2 = mul_mod(base, base, p);
+                [base, b2, mul_mod(b2, base, p)]
+            }),
+            acc: Default::default(),
         }
     }
 
     /// Adds the window of limbs `first..first + limbs.len()`.
     pub fn add(&self, first: usize, limbs: &[u64]) {
         use std::sync::atomic::Ordering;
-        let m = &self.h.m;
-        let part = m.mul(
-            single_residue(&self.h, limbs),
-            pow(m, self.base, first as u64),
-        );
-        let _ = self
-            .acc
-            .fetch_update(Ordering::Relaxed, Ordering::Relaxed, |a| {
-                Some(m.add(a, part))
+        let parts = [
+            pseudo_mersenne_residue::<61, 1>(limbs, self.w[0]),
+            pseudo_mersenne_residue::<62, 57>(limbs, self.w[1]),
+            pseudo_mersenne_residue::<62, 87>(limbs, self.w[2]),
+        ];
+        for (((&p, w), acc), part) in FIXED_MODULI.iter().zip(&self.w).zip(&self.acc).zip(parts) {
+            let part = mul_mod(part, Modulus::new(p).pow(w[0], first as u64), p);
+            let _ = acc.fetch_update(Ordering::Relaxed, Ordering::Relaxed, |a| {
+                Some((a + part) % p)
             });
+        }
     }
-
-    /// The residue of everything added.
-    pub fn value(&self) -> u64 {
-        self.acc.load(std::sync::atomic::Ordering::Relaxed)
+    /// The residues of everything added, in the order of [`FIXED_MODULI`].
+    pub fn values(&self) -> [u64; 3] {
+        self.acc
+            .each_ref()
+            .map(|a| a.load(std::sync::atomic::Ordering::Relaxed))
     }
 }
 
@@ -572,12 +634,34 @@ mod tests {
                     reference(x, Radix::Binary, p),
                     "{len}"
                 );
-                // windows out of order, as the product's writer delivers them
-                let tap = ResidueTap::new(p, Radix::Binary);
-                for w in (0..len).step_by(300).rev() {
-                    tap.add(w, &x[w..(w + 300).min(len)]);
+            }
+            // windows out of order, as the product's writer delivers them
+            let tap = ResidueTap::fixed(Radix::Binary);
+            for w in (0..len).step_by(300).rev() {
+                tap.add(w, &x[w..(w + 300).min(len)]);
+            }
+            let want = FIXED_MODULI.map(|p| reference(x, Radix::Binary, p));
+            assert_eq!(tap.values(), want);
+            // every fixed modulus in one sweep, both radixes, uneven windows
+            for radix in [Radix::Binary, Radix::Decimal] {
+                let x: Vec<u64> = x.iter().map(|&l| l % radix.max_limb()).collect();
+                let tap = ResidueTap::fixed(radix);
+                let mut w = 0;
+                let mut step = 1;
+                while w < len {
+                    let e = (w + step).min(len);
+                    tap.add(w, &x[w..e]);
+                    w = e;
+                    step = step * 3 + 1;
                 }
-                assert_eq!(tap.value(), reference(x, Radix::Binary, p));
+                let want = FIXED_MODULI.map(|p| reference(&x, radix, p));
+                assert_eq!(tap.values(), want, "{radix:?} {len}");
+                // maximal limbs: the largest products the folds meet
+                let max = vec![radix.max_limb(); len];
+                let tap = ResidueTap::fixed(radix);
+                tap.add(0, &max);
+                let want = FIXED_MODULI.map(|p| reference(&max, radix, p));
+                assert_eq!(tap.values(), want, "{radix:?} maximal {len}");
             }
         }
     }

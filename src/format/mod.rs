@@ -29,6 +29,7 @@
 //! [`Operand::open`] validates the whole file up front, so every later read
 //! is infallible and a bad file is rejected before any work is done.
 
+mod blocks;
 pub mod container;
 pub mod limbs;
 pub mod text;
@@ -44,6 +45,8 @@ use serde::{Deserialize, Serialize};
 use crate::radix::{DEC_DIGITS_PER_LIMB, HEX_DIGITS_PER_LIMB};
 use crate::{Error, Radix, Result};
 use text::TextKind;
+
+pub use blocks::{LimbFeed, Written};
 
 /// Drops the pages of bytes `offset..offset + len` of a mapped file from
 /// this process's resident memory (nothing for a file read into memory).
@@ -548,71 +551,111 @@ pub fn write_operand<W: Write>(
     limbs: &[u64],
 ) -> io::Result<()> {
     let (limbs, negative) = checked_for_writing(format, radix, negative, limbs)?;
-    match format {
-        Format::Decimal => text::write_dec(
-            text::TextOut::Stream(w),
-            negative,
-            limbs.len(),
-            &text::slice_fetch(limbs),
-        ),
-        Format::Hex => text::write_hex(
-            text::TextOut::Stream(w),
-            negative,
-            limbs.len(),
-            &text::slice_fetch(limbs),
-        ),
-        Format::Limbs => limbs::write_raw(w, limbs),
-        Format::Container => container::write(w, radix, negative, limbs),
+    match text_kind(format) {
+        Some(kind) => {
+            let fetch = blocks::SliceFeed {
+                limbs,
+                seen: &|_, _| {},
+            };
+            let shape = blocks::TextShape::new(kind, negative, limbs.len(), &fetch)?;
+            blocks::write_stream(w, &shape, &fetch)
+        }
+        None if format == Format::Limbs => limbs::write_raw(w, limbs),
+        None => container::write(w, radix, negative, limbs),
     }
 }
 
-/// [`write_operand`] into a file from its start; text is written from many
-/// threads at once at its offsets, so a large product's copy into the page
-/// cache runs on every core.
+/// The digit set of a text format.
+fn text_kind(format: Format) -> Option<TextKind> {
+    match format {
+        Format::Decimal => Some(TextKind::Decimal),
+        Format::Hex => Some(TextKind::Hex),
+        Format::Limbs | Format::Container => None,
+    }
+}
+
+/// Passes bytes on to a writer and hashes them on the way.
+struct Hashing<W> {
+    inner: W,
+    hasher: blake3::Hasher,
+    bytes: u64,
+}
+
+impl<W: Write> Write for Hashing<W> {
+    fn write(&mut self, buf: &[u8]) -> io::Result<usize> {
+        let n = self.inner.write(buf)?;
+        self.hasher.update(&buf[..n]);
+        self.bytes += n as u64;
+        Ok(n)
+    }
+
+    fn flush(&mut self) -> io::Result<()> {
+        self.inner.flush()
+    }
+}
+
+/// [`write_operand`] into a file from its start, returning its length and
+/// BLAKE3. Text is formatted on every core in blocks that an I/O thread
+/// writes directly to the disk while the next is formatted. `seen` is told
+/// of every significant limb once, in windows in any order, as it is
+/// written.
 pub fn write_operand_file(
     file: &File,
     format: Format,
     radix: Radix,
     negative: bool,
     limbs: &[u64],
-) -> io::Result<()> {
-    let at = text::TextOut::<io::Sink>::At(file);
-    match format {
-        Format::Decimal | Format::Hex => {
-            let (limbs, negative) = checked_for_writing(format, radix, negative, limbs)?;
-            let fetch = text::slice_fetch(limbs);
-            if format == Format::Decimal {
-                text::write_dec(at, negative, limbs.len(), &fetch)
-            } else {
-                text::write_hex(at, negative, limbs.len(), &fetch)
-            }
-        }
-        Format::Limbs | Format::Container => {
-            let mut w = io::BufWriter::with_capacity(1 << 22, file);
+    seen: &(dyn Fn(usize, &[u64]) + Sync),
+) -> io::Result<Written> {
+    let (limbs, negative) = checked_for_writing(format, radix, negative, limbs)?;
+    match text_kind(format) {
+        Some(_) => write_text_file_from(
+            file,
+            format,
+            radix,
+            negative,
+            limbs.len(),
+            &blocks::SliceFeed { limbs, seen },
+        ),
+        None => {
+            limbs
+                .par_chunks(1 << 16)
+                .enumerate()
+                .for_each(|(i, chunk)| seen(i << 16, chunk));
+            let mut w = Hashing {
+                inner: io::BufWriter::with_capacity(1 << 22, file),
+                hasher: blake3::Hasher::new(),
+                bytes: 0,
+            };
             write_operand(&mut w, format, radix, negative, limbs)?;
-            w.flush()
+            w.flush()?;
+            Ok(Written {
+                bytes: w.bytes,
+                blake3: w.hasher.finalize(),
+            })
         }
     }
 }
 
 /// Writes the `len` limbs that `fetch` supplies (top limb non-zero, or
-/// `len == 0` for zero) into a file as text, without holding them in RAM:
-/// for products that live on disk. Decimal and hexadecimal text only.
+/// `len == 0` for zero) into a file as text, without holding them in RAM,
+/// and returns its length and BLAKE3. Decimal and hexadecimal text only.
 pub fn write_text_file_from(
     file: &File,
     format: Format,
     radix: Radix,
     negative: bool,
     len: usize,
-    fetch: &(dyn Fn(usize, &mut [u64]) -> io::Result<()> + Sync),
-) -> io::Result<()> {
+    fetch: &dyn LimbFeed,
+) -> io::Result<Written> {
     checked_for_writing(format, radix, negative, &[])?;
     let negative = negative && len > 0;
-    let at = text::TextOut::<io::Sink>::At(file);
-    match format {
-        Format::Decimal => text::write_dec(at, negative, len, fetch),
-        Format::Hex => text::write_hex(at, negative, len, fetch),
-        Format::Limbs | Format::Container => Err(io::Error::new(
+    match text_kind(format) {
+        Some(kind) => {
+            let shape = blocks::TextShape::new(kind, negative, len, fetch)?;
+            blocks::write_file(file, &shape, fetch)
+        }
+        None => Err(io::Error::new(
             io::ErrorKind::Unsupported,
             "a product computed out of core is written as decimal or hexadecimal text; \
              use --out-format dec or hex",
@@ -669,7 +712,7 @@ mod tests {
                     write_operand(&mut stream, format, radix, negative, &limbs).unwrap();
                     let path = dir.path().join("f.txt");
                     let file = File::create(&path).unwrap();
-                    write_operand_file(&file, format, radix, negative, &limbs).unwrap();
+                    write_operand_file(&file, format, radix, negative, &limbs, &|_, _| {}).unwrap();
                     drop(file);
                     assert_eq!(std::fs::read(&path).unwrap(), stream, "{format} len {len}");
                 }

@@ -21,7 +21,6 @@
 //! `i` (base 2^64) is the 16 digits ending `16 * i` bytes before it. The
 //! most significant limb may be shorter. No radix conversion takes place.
 
-use std::io::{self, Write};
 use std::ops::Range;
 use std::path::Path;
 
@@ -35,6 +34,16 @@ use crate::{Error, Result};
 pub(crate) enum TextKind {
     Decimal,
     Hex,
+}
+
+impl TextKind {
+    /// Digits per limb.
+    pub(crate) fn width(self) -> usize {
+        match self {
+            TextKind::Decimal => DEC_DIGITS_PER_LIMB,
+            TextKind::Hex => HEX_DIGITS_PER_LIMB,
+        }
+    }
 }
 
 /// Where a validated text operand's number lies in its bytes.
@@ -394,7 +403,70 @@ pub(crate) fn read_dec(digits: &[u8], first: usize, out: &mut [u64]) {
 
 /// Base-2^64 limbs of validated significant hexadecimal digits.
 pub(crate) fn read_hex(digits: &[u8], first: usize, out: &mut [u64]) {
+    #[cfg(target_arch = "x86_64")]
+    {
+        // The full limbs of the range lie back to back in the text, the
+        // highest first: decode them two at a time in vector registers.
+        let full = digits.len() / HEX_DIGITS_PER_LIMB;
+        let k = out.len().min(full.saturating_sub(first));
+        if k >= 2 && std::arch::is_x86_feature_detected!("avx2") {
+            let end = digits.len() - HEX_DIGITS_PER_LIMB * first;
+            let text = &digits[end - HEX_DIGITS_PER_LIMB * k..end];
+            // SAFETY: the CPU has AVX2 (checked above).
+            unsafe { hex_limbs_avx2(text, &mut out[..k]) };
+            read_radix_native(
+                digits,
+                HEX_DIGITS_PER_LIMB,
+                hex16,
+                hex_short,
+                first + k,
+                &mut out[k..],
+            );
+            return;
+        }
+    }
     read_radix_native(digits, HEX_DIGITS_PER_LIMB, hex16, hex_short, first, out);
+}
+
+/// The limbs of `text`, validated hexadecimal digits 16 per limb with the
+/// most significant limb first, into `out` (least significant first): two
+/// limbs per 32-byte load. Each byte becomes its nibble (`b & 15`, plus 9
+/// for letters, which have bit 6 set), neighbouring nibbles are merged by
+/// a multiply-add (16, 1), and the bytes of each limb are gathered in
+/// little-endian order by one shuffle. On the development machine it took
+/// 0.75 ns a limb against the word decoder's 2.2 ns on text in cache; on
+/// text streamed from memory (2^22 limbs) 20 ms against 26 to 33 ms.
+#[cfg(target_arch = "x86_64")]
+#[target_feature(enable = "avx2")]
+unsafe fn hex_limbs_avx2(text: &[u8], out: &mut [u64]) {
+    use std::arch::x86_64::*;
+    let n = out.len();
+    assert_eq!(text.len(), HEX_DIGITS_PER_LIMB * n);
+    let low_nibble = _mm256_set1_epi8(0x0F);
+    let one = _mm256_set1_epi8(1);
+    let weights = _mm256_set1_epi16(0x0110);
+    // Low bytes of the eight 16-bit values of each lane, last first.
+    let gather = _mm256_setr_epi8(
+        14, 12, 10, 8, 6, 4, 2, 0, -1, -1, -1, -1, -1, -1, -1, -1, //
+        14, 12, 10, 8, 6, 4, 2, 0, -1, -1, -1, -1, -1, -1, -1, -1,
+    );
+    let pairs = n / 2;
+    for j in 0..pairs {
+        // SAFETY: bytes 32j..32j + 32 lie within `text` (length 16n).
+        let v = unsafe { _mm256_loadu_si256(text.as_ptr().add(32 * j) as *const __m256i) };
+        let letter = _mm256_and_si256(_mm256_srli_epi16(v, 6), one);
+        let nib = _mm256_add_epi8(
+            _mm256_and_si256(v, low_nibble),
+            _mm256_add_epi8(letter, _mm256_slli_epi16(letter, 3)),
+        );
+        let bytes = _mm256_maddubs_epi16(nib, weights);
+        let limbs = _mm256_shuffle_epi8(bytes, gather);
+        out[n - 1 - 2 * j] = _mm256_extract_epi64(limbs, 0) as u64;
+        out[n - 2 - 2 * j] = _mm256_extract_epi64(limbs, 2) as u64;
+    }
+    if n % 2 == 1 {
+        out[0] = hex16(&text[16 * (n - 1)..]);
+    }
 }
 
 /// Decimal digit pairs "00" to "99", for writing two digits per lookup.
@@ -466,201 +538,27 @@ fn hex8_ascii(x: u32) -> [u8; 8] {
     (v + 0x3030_3030_3030_3030 + letters * 39).to_be_bytes()
 }
 
-/// Limbs formatted per rayon task when writing.
-const WRITE_TASK_LIMBS: usize = 1 << 13;
-/// Tasks formatted before their bytes are written: bounds the memory held
-/// (8 tasks of 8192 limbs: about 1.3 MB of decimal text and 0.5 MB of limbs) while keeping every core busy.
-const WRITE_BATCH_TASKS: usize = 8;
-
-/// Where text goes: a stream written in order, or a file written at known
-/// offsets from many threads at once.
-pub(crate) enum TextOut<'a, W: Write> {
-    /// Bytes are written sequentially.
-    Stream(&'a mut W),
-    /// Each formatted chunk is written at its own offset, in parallel: the
-    /// page-cache copy of a large product then runs on every core.
-    At(&'a std::fs::File),
-}
-
-impl<W: Write> TextOut<'_, W> {
-    fn put(&mut self, offset: u64, bytes: &[u8]) -> io::Result<()> {
-        match self {
-            TextOut::Stream(w) => w.write_all(bytes),
-            TextOut::At(f) => {
-                use std::os::unix::fs::FileExt;
-                f.write_all_at(bytes, offset)
-            }
+/// Formats one limb as exactly the kind's width of digits; false when the
+/// limb is not a digit of the radix (a decimal limb of 10^19 or more).
+#[inline]
+pub(crate) fn put_limb(kind: TextKind, out: &mut [u8], x: u64) -> bool {
+    match kind {
+        TextKind::Hex => {
+            put16_hex(out, x);
+            true
         }
-    }
-}
-
-/// Supplies limbs `first..first + out.len()` of a number being written.
-pub(crate) type Fetch<'a> = &'a (dyn Fn(usize, &mut [u64]) -> io::Result<()> + Sync);
-
-/// Writes the `len` limbs that `fetch` supplies (little-endian, top limb
-/// non-zero, or `len == 0` for zero) as text: sign, top limb without
-/// leading zeros, the rest zero-padded to `width`, then a newline. Limbs are
-/// fetched and formatted in parallel tasks, a bounded batch at a time, so a
-/// product on disk is written without holding it in RAM; a stream is then
-/// written sequentially, a file at offsets in parallel.
-fn write_text<W: Write, P: Fn(&mut [u8], u64) -> bool + Sync>(
-    mut out: TextOut<'_, W>,
-    negative: bool,
-    len: usize,
-    fetch: Fetch<'_>,
-    width: usize,
-    put: P,
-) -> io::Result<()> {
-    if len == 0 {
-        return out.put(0, b"0\n");
-    }
-    let mut top = [0u64];
-    fetch(len - 1, &mut top)?;
-    let top = top[0];
-    let mut head = Vec::with_capacity(width + 1);
-    if negative {
-        head.push(b'-');
-    }
-    let mut top_digits = vec![0u8; width];
-    if !put(&mut top_digits, top) {
-        return Err(bad_limb(len - 1, top));
-    }
-    let skip = top_digits
-        .iter()
-        .position(|&b| b != b'0')
-        .unwrap_or(width - 1);
-    head.extend_from_slice(&top_digits[skip..]);
-    out.put(0, &head)?;
-    let body_start = head.len() as u64;
-
-    // Tasks cover the lower limbs from the most significant down, the order
-    // in which the text is written: task t holds limbs [lo, hi).
-    let lower = len - 1;
-    let task_count = lower.div_ceil(WRITE_TASK_LIMBS);
-    let task_range = |t: usize| {
-        let hi = lower - t * WRITE_TASK_LIMBS;
-        (hi.saturating_sub(WRITE_TASK_LIMBS), hi)
-    };
-    let slots = WRITE_BATCH_TASKS.min(task_count);
-    let mut bufs: Vec<(Vec<u64>, Vec<u8>)> = vec![(Vec::new(), Vec::new()); slots];
-    let file = match &out {
-        TextOut::At(f) => Some(*f),
-        TextOut::Stream(_) => None,
-    };
-    let mut t0 = 0;
-    while t0 < task_count {
-        let batch = (task_count - t0).min(WRITE_BATCH_TASKS);
-        bufs[..batch]
-            .par_iter_mut()
-            .enumerate()
-            .try_for_each(|(i, (limbs, text))| {
-                let t = t0 + i;
-                let (lo, hi) = task_range(t);
-                limbs.resize(hi - lo, 0);
-                fetch(lo, limbs)?;
-                text.clear();
-                text.resize(limbs.len() * width, 0);
-                for (&x, (j, out)) in limbs
-                    .iter()
-                    .rev()
-                    .zip(text.chunks_exact_mut(width).enumerate())
-                {
-                    if !put(out, x) {
-                        return Err(bad_limb(hi - 1 - j, x));
-                    }
-                }
-                if let Some(f) = file {
-                    let offset = body_start + ((t * WRITE_TASK_LIMBS) * width) as u64;
-                    TextOut::<W>::At(f).put(offset, text)?;
-                }
-                Ok(())
-            })?;
-        let first = t0 * WRITE_TASK_LIMBS;
-        let batch_limbs = (first + batch * WRITE_TASK_LIMBS).min(lower) - first;
-        match file {
-            None => {
-                for (_, text) in &bufs[..batch] {
-                    out.put(0, text)?;
-                }
-            }
-            Some(f) => crate::output::start_writeback(
-                f,
-                body_start + (first * width) as u64,
-                (batch_limbs * width) as u64,
-            ),
+        TextKind::Decimal if x < DEC_BASE => {
+            put19(out, x);
+            true
         }
-        t0 += batch;
+        TextKind::Decimal => false,
     }
-    out.put(body_start + (lower * width) as u64, b"\n")
-}
-
-/// A [`Fetch`] over limbs in memory.
-pub(crate) fn slice_fetch(
-    limbs: &[u64],
-) -> impl Fn(usize, &mut [u64]) -> io::Result<()> + Sync + '_ {
-    move |first, out| {
-        out.copy_from_slice(&limbs[first..first + out.len()]);
-        Ok(())
-    }
-}
-
-fn bad_limb(index: usize, value: u64) -> io::Error {
-    io::Error::new(
-        io::ErrorKind::InvalidInput,
-        format!("limb {index} is {value}, which is not below 10^19: not a decimal limb"),
-    )
-}
-
-fn put_dec_checked(out: &mut [u8], x: u64) -> bool {
-    if x >= DEC_BASE {
-        return false;
-    }
-    put19(out, x);
-    true
-}
-
-fn put_hex_checked(out: &mut [u8], x: u64) -> bool {
-    put16_hex(out, x);
-    true
-}
-
-/// Writes base-10^19 limbs as canonical decimal text.
-pub(crate) fn write_dec<W: Write>(
-    out: TextOut<'_, W>,
-    negative: bool,
-    len: usize,
-    fetch: Fetch<'_>,
-) -> io::Result<()> {
-    write_text(
-        out,
-        negative,
-        len,
-        fetch,
-        DEC_DIGITS_PER_LIMB,
-        put_dec_checked,
-    )
-}
-
-/// Writes base-2^64 limbs as canonical lowercase hexadecimal text.
-pub(crate) fn write_hex<W: Write>(
-    out: TextOut<'_, W>,
-    negative: bool,
-    len: usize,
-    fetch: Fetch<'_>,
-) -> io::Result<()> {
-    write_text(
-        out,
-        negative,
-        len,
-        fetch,
-        HEX_DIGITS_PER_LIMB,
-        put_hex_checked,
-    )
 }
 
 #[cfg(test)]
 mod tests {
     use super::*;
+    use std::io;
 
     #[test]
     fn swar_decimal_matches_naive() {
@@ -683,6 +581,38 @@ mod tests {
             assert_eq!(dec19(&s), x);
             assert_eq!(dec_short(&s), x);
             assert_eq!(format!("{x:019}").as_bytes(), &s);
+        }
+    }
+
+    /// The vector decoder (where the CPU has it) and the word decoder
+    /// agree with `from_str_radix` on every range of limbs: mixed-case
+    /// digits, a short top limb, ranges of odd and even length that start
+    /// and end anywhere, past the top too.
+    #[test]
+    fn hex_limb_ranges_match_naive() {
+        let mut r = crate::rng::Rng::new(8);
+        let alphabet = b"0123456789abcdefABCDEF";
+        for len in [1usize, 15, 16, 17, 32, 33, 100, 16 * 37 + 5] {
+            let digits: Vec<u8> = (0..len)
+                .map(|_| alphabet[r.below(alphabet.len() as u64) as usize])
+                .collect();
+            let limbs = len.div_ceil(16);
+            let naive = |i: usize| -> u64 {
+                if i >= limbs {
+                    return 0;
+                }
+                let end = len - 16 * i;
+                let text = std::str::from_utf8(&digits[end.saturating_sub(16)..end]).unwrap();
+                u64::from_str_radix(text, 16).unwrap()
+            };
+            for first in 0..limbs + 2 {
+                for n in 0..limbs + 3 - first {
+                    let mut out = vec![7u64; n];
+                    read_hex(&digits, first, &mut out);
+                    let want: Vec<u64> = (first..first + n).map(naive).collect();
+                    assert_eq!(out, want, "len {len} first {first} n {n}");
+                }
+            }
         }
     }
 
@@ -769,31 +699,28 @@ mod tests {
 
     #[test]
     fn bad_limb_is_reported_with_its_index() {
-        let mut limbs = vec![1u64; WRITE_TASK_LIMBS * 3 + 5];
-        limbs[WRITE_TASK_LIMBS + 2] = DEC_BASE;
-        let err = write_dec(
-            TextOut::Stream(&mut Vec::new()),
-            false,
-            limbs.len(),
-            &slice_fetch(&limbs),
-        )
-        .unwrap_err();
+        use super::super::blocks::{write_stream, SliceFeed, TextShape, BLOCK_BYTES};
+        let mut limbs = vec![1u64; BLOCK_BYTES / 19 * 3 + 5];
+        let deep = BLOCK_BYTES / 19 + 2;
+        limbs[deep] = DEC_BASE;
+        let fetch = SliceFeed {
+            limbs: &limbs,
+            seen: &|_, _| {},
+        };
+        let shape = TextShape::new(TextKind::Decimal, false, limbs.len(), &fetch).unwrap();
+        let err = write_stream(&mut Vec::new(), &shape, &fetch).unwrap_err();
         assert_eq!(err.kind(), io::ErrorKind::InvalidInput);
-        assert!(
-            err.to_string()
-                .contains(&format!("limb {} ", WRITE_TASK_LIMBS + 2)),
-            "{err}"
-        );
+        assert!(err.to_string().contains(&format!("limb {deep} ")), "{err}");
         let top = limbs.len() - 1;
-        limbs[WRITE_TASK_LIMBS + 2] = 0;
+        limbs[deep] = 0;
         limbs[top] = u64::MAX;
-        let err = write_dec(
-            TextOut::Stream(&mut Vec::new()),
-            false,
-            limbs.len(),
-            &slice_fetch(&limbs),
-        )
-        .unwrap_err();
+        let fetch = SliceFeed {
+            limbs: &limbs,
+            seen: &|_, _| {},
+        };
+        let err = TextShape::new(TextKind::Decimal, false, limbs.len(), &fetch)
+            .err()
+            .unwrap();
         assert!(err.to_string().contains(&format!("limb {top} ")), "{err}");
     }
 }

@@ -139,6 +139,38 @@ impl Crt50 {
         [lo as u64, mid as u64, hi as u64, (hi >> 64) as u64]
     }
 
+    /// The value with mixed-radix digits `y` (each `y_i < p_i`, those from
+    /// `count` on zero) in signed form, as four words of two's complement:
+    /// `v - P` when `v > (P - 1) / 2`, `P` the product of the first `count`
+    /// primes. The top digit tells the sign, except when it is exactly
+    /// `(p_top - 1) / 2` (once in `p_top` values), which goes the long way;
+    /// otherwise that digit is taken signed (`y_top - p_top`, which is what
+    /// subtracting `P` does to it) and Horner's rule runs modulo 2^256,
+    /// where two's complement products by the positive primes are exact.
+    #[inline(always)]
+    fn signed_value_of_digits(&self, y: [u64; K], count: usize, modulus: &[u64; 4]) -> [u64; 4] {
+        let top = count - 1;
+        let p_top = self.m[top].p;
+        let half = (p_top - 1) / 2;
+        if y[top] == half {
+            return to_signed(self.value_of_digits(y), modulus);
+        }
+        // Arithmetic, not a branch: the sign is a coin toss per coefficient.
+        let above = (half as i64 - y[top] as i64) >> 63;
+        let t = y[top] as i64 - (p_top as i64 & above);
+        // |t p + y| < 2^100
+        let a = t as i128 * self.m[top - 1].p as i128 + y[top - 1] as i128;
+        // times the next prime, plus its digit: below 2^150 in magnitude
+        let p = self.m[top - 2].p as i128;
+        let lo = (a as u64) as u128 * p as u128 + y[top - 2] as u128;
+        let hi = (a >> 64) * p + (lo >> 64) as i128;
+        let mut v = [lo as u64, hi as u64, (hi >> 64) as u64, (hi >> 127) as u64];
+        for i in (0..top - 2).rev() {
+            v = mul_add_mod_2_256(v, self.m[i].p, y[i]);
+        }
+        v
+    }
+
     /// The coefficient with the given scaled, lazily reduced residues (each
     /// below 2^52, which covers `[0, 4p)`), as three little-endian words.
     /// The value must be below 2^192, which every product coefficient is
@@ -224,12 +256,13 @@ impl Crt50 {
             if three {
                 y[3][..len].fill(0);
             }
+            let count = residues.len();
             for (k, o) in out[first..first + len].iter_mut().enumerate() {
-                let v = self.value_of_digits([y[0][k], y[1][k], y[2][k], y[3][k]]);
+                let digits = [y[0][k], y[1][k], y[2][k], y[3][k]];
                 let [w0, w1, w2, w3] = if self.signed {
-                    to_signed(v, &modulus)
+                    self.signed_value_of_digits(digits, count, &modulus)
                 } else {
-                    v
+                    self.value_of_digits(digits)
                 };
                 // The top word must be the sign extension of the 192 bits
                 // (zero for unsigned values).
@@ -319,6 +352,19 @@ fn to_signed(v: [u64; 4], modulus: &[u64; 4]) -> [u64; 4] {
         let (d, b2) = d.overflowing_sub(borrow as u64);
         out[i] = d;
         borrow = b1 | b2;
+    }
+    out
+}
+
+/// `v * p + y` modulo 2^256, on four little-endian words.
+#[inline(always)]
+fn mul_add_mod_2_256(v: [u64; 4], p: u64, y: u64) -> [u64; 4] {
+    let mut out = [0u64; 4];
+    let mut carry = y as u128;
+    for (o, &w) in out.iter_mut().zip(&v) {
+        let t = w as u128 * p as u128 + carry;
+        *o = t as u64;
+        carry = t >> 64;
     }
     out
 }
@@ -652,6 +698,43 @@ mod tests {
             assert!(crt.coefficients_checked(kernel, &r, &mut out), "{kernel:?}");
             for (k, o) in out.iter().enumerate() {
                 assert_eq!(big(o), values[k], "{kernel:?} value {k}");
+            }
+        }
+    }
+
+    /// The signed form read off the top digit equals the long way (value,
+    /// then a 256-bit comparison with half the modulus) for three and four
+    /// primes: top digits on both sides of half and at it, lower digits at
+    /// their ends and random.
+    #[test]
+    fn signed_digits_match_the_long_way() {
+        use crate::ntt50::primes::product_of_first;
+        let crt = Crt50::new([1; K]);
+        let mut rng = crate::rng::Rng::new(17);
+        for count in [3usize, 4] {
+            let modulus = product_of_first(count);
+            let p = |i: usize| crt.m[i].p;
+            let half = (p(count - 1) - 1) / 2;
+            let tops = [0, 1, half - 1, half, half + 1, p(count - 1) - 1];
+            for &top in &tops {
+                for round in 0..200 {
+                    let mut y = [0u64; K];
+                    for (i, d) in y.iter_mut().enumerate().take(count - 1) {
+                        *d = match round % 4 {
+                            0 => 0,
+                            1 => p(i) - 1,
+                            2 => (p(i) - 1) / 2,
+                            _ => rng.below(p(i)),
+                        };
+                    }
+                    y[count - 1] = top;
+                    let want = to_signed(crt.value_of_digits(y), &modulus);
+                    assert_eq!(
+                        crt.signed_value_of_digits(y, count, &modulus),
+                        want,
+                        "count {count} digits {y:?}"
+                    );
+                }
             }
         }
     }
