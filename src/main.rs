@@ -516,7 +516,21 @@ impl Cli {
     }
 }
 
+/// A reader that stops early (`vastmul plan A B | head`) closes the pipe;
+/// like other command-line tools, vastmul then ends quietly by SIGPIPE
+/// instead of failing to print (Rust ignores the signal by default, which
+/// turns the closed pipe into a panic in `println!`).
+fn quiet_on_closed_pipe() {
+    #[cfg(unix)]
+    // SAFETY: restoring a signal's default disposition before any other
+    // thread exists touches no memory of this process.
+    unsafe {
+        libc::signal(libc::SIGPIPE, libc::SIG_DFL);
+    }
+}
+
 fn main() -> ExitCode {
+    quiet_on_closed_pipe();
     let cli = Cli::parse();
     let json = cli.json();
     match run(cli) {

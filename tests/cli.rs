@@ -337,3 +337,32 @@ fn check_passes_on_a_product_and_fails_on_a_changed_digit() {
     let o = vastmul(&["check", "a.txt", "b.txt", "pos.txt"], d);
     assert_eq!(o.status.code(), Some(6), "{}", stderr(&o));
 }
+
+/// A reader that closes the pipe before vastmul has printed everything
+/// (`vastmul plan A B | head -1`) ends it quietly, by SIGPIPE, never with a
+/// panic on stderr.
+#[test]
+fn a_closed_stdout_pipe_ends_quietly() {
+    use std::os::unix::process::ExitStatusExt;
+    use std::process::Stdio;
+    let dir = tempfile::tempdir().unwrap();
+    write(dir.path(), "a.txt", digits(5000, 1).as_bytes());
+    write(dir.path(), "b.txt", digits(4000, 2).as_bytes());
+    let mut child = Command::new(env!("CARGO_BIN_EXE_vastmul"))
+        .args(["plan", "a.txt", "b.txt"])
+        .current_dir(dir.path())
+        .stdout(Stdio::piped())
+        .stderr(Stdio::piped())
+        .spawn()
+        .expect("run vastmul");
+    // Close the read end before the plan is printed.
+    drop(child.stdout.take());
+    let o = child.wait_with_output().unwrap();
+    let err = stderr(&o);
+    assert!(!err.contains("panicked"), "stderr: {err}");
+    assert!(
+        o.status.success() || o.status.signal() == Some(libc::SIGPIPE),
+        "status {:?}, stderr: {err}",
+        o.status
+    );
+}

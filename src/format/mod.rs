@@ -51,7 +51,7 @@ pub use blocks::{LimbFeed, Written};
 /// Drops the pages of bytes `offset..offset + len` of a mapped file from
 /// this process's resident memory (nothing for a file read into memory).
 fn release_bytes(data: &Backing, offset: usize, len: usize) {
-    let Backing::Mapped(map) = data else {
+    let Backing::Mapped(map, _) = data else {
         return;
     };
     if len == 0 {
@@ -76,8 +76,10 @@ pub struct Released<'a>(pub &'a Operand);
 
 impl crate::storage::LimbSource for Released<'_> {
     fn fill_limbs(&self, first: usize, out: &mut [u64]) {
-        self.0.read_limbs(first, out);
-        self.0.release_limbs(first, out.len());
+        if !self.0.read_limbs_positioned(first, out) {
+            self.0.read_limbs(first, out);
+            self.0.release_limbs(first, out.len());
+        }
     }
 
     fn prefetch_limbs(&self, first: usize, n: usize) {
@@ -149,14 +151,16 @@ pub fn format_radix_compatible(format: Format, radix: Radix) -> bool {
 
 /// The bytes of an operand file: mapped when possible, read otherwise.
 enum Backing {
-    Mapped(memmap2::Mmap),
+    /// The file mapped, and kept open for positional reads of released
+    /// windows.
+    Mapped(memmap2::Mmap, File),
     Owned(Vec<u8>),
 }
 
 impl Backing {
     fn bytes(&self) -> &[u8] {
         match self {
-            Backing::Mapped(m) => m,
+            Backing::Mapped(m, _) => m,
             Backing::Owned(v) => v,
         }
     }
@@ -165,7 +169,7 @@ impl Backing {
 impl std::fmt::Debug for Backing {
     fn fmt(&self, f: &mut std::fmt::Formatter<'_>) -> std::fmt::Result {
         match self {
-            Backing::Mapped(m) => write!(f, "Mapped({} bytes)", m.len()),
+            Backing::Mapped(m, _) => write!(f, "Mapped({} bytes)", m.len()),
             Backing::Owned(v) => write!(f, "Owned({} bytes)", v.len()),
         }
     }
@@ -245,7 +249,7 @@ fn load(path: &Path) -> Result<Backing> {
             if map.is_empty() {
                 return Err(empty());
             }
-            return Ok(Backing::Mapped(map));
+            return Ok(Backing::Mapped(map, file));
         }
     }
     // Pipes, character devices and file systems that cannot map.
@@ -447,12 +451,51 @@ impl Operand {
         }
     }
 
+    /// [`Operand::read_limbs`] through a positional read of the bytes
+    /// behind the limbs into a per-thread buffer, so that no page of the
+    /// file is mapped into the process: released reads of short segments
+    /// (a column block's rows) would otherwise fault pages in and drop
+    /// them again one segment at a time, which cost several times the
+    /// parsing in system time. False (nothing read) for an operand that is
+    /// not a mapped file, or when the read fails; the caller then reads
+    /// through the mapping.
+    pub fn read_limbs_positioned(&self, first: usize, out: &mut [u64]) -> bool {
+        use std::os::unix::fs::FileExt;
+        thread_local! {
+            static BYTES: std::cell::RefCell<Vec<u8>> = const { std::cell::RefCell::new(Vec::new()) };
+        }
+        let Backing::Mapped(_, file) = &self.data else {
+            return false;
+        };
+        // Past the top only zeros (and no byte range to compute).
+        let n = out.len().min(self.limb_count.saturating_sub(first));
+        out[n..].fill(0);
+        let out = &mut out[..n];
+        if n == 0 {
+            return true;
+        }
+        let (lo, hi) = self.limb_bytes(first, n);
+        BYTES.with_borrow_mut(|buf| {
+            buf.resize(hi.saturating_sub(lo), 0);
+            if file.read_exact_at(buf, lo as u64).is_err() {
+                return false;
+            }
+            // The buffer's last byte ends limb `first`: read it as limb 0.
+            match &self.layout {
+                Layout::Decimal(_) => text::read_dec(buf, 0, out),
+                Layout::Hex(_) => text::read_hex(buf, 0, out),
+                Layout::Words(_) => limbs::read_words(buf, 0, out),
+            }
+            true
+        })
+    }
+
     /// Tells the kernel that reads will be scattered: it then maps only the
     /// page a read touches, not its neighbours ("fault-around"), so that
     /// [`Operand::release_limbs`] really keeps the resident pages to those
     /// in use.
     pub fn expect_scattered_reads(&self) {
-        if let Backing::Mapped(map) = &self.data {
+        if let Backing::Mapped(map, _) = &self.data {
             let _ = map.advise(memmap2::Advice::Random);
         }
     }
@@ -497,7 +540,7 @@ impl Operand {
     /// reads of the out-of-core column passes.
     pub fn prefetch_limbs(&self, first: usize, n: usize) {
         let (lo, hi) = self.limb_bytes(first, n);
-        if let (Backing::Mapped(map), true) = (&self.data, lo < hi) {
+        if let (Backing::Mapped(map, _), true) = (&self.data, lo < hi) {
             let _ = map.advise_range(memmap2::Advice::WillNeed, lo, hi - lo);
         }
     }
@@ -955,6 +998,20 @@ mod tests {
                     assert_eq!(window, [limbs[n - 1], 0, 0, 0, 0]);
                     op.read_limbs(usize::MAX - 2, &mut window);
                     assert_eq!(window, [0; 5]);
+                    // Positional reads (released windows) give the same
+                    // limbs for every window, past the top too.
+                    for first in 0..n + 2 {
+                        for len in 0..n + 3 - first {
+                            let mut a = vec![7u64; len];
+                            let mut b = vec![9u64; len];
+                            op.read_limbs(first, &mut a);
+                            assert!(op.read_limbs_positioned(first, &mut b));
+                            assert_eq!(a, b, "{format:?} {n} {first}+{len}");
+                        }
+                    }
+                    let mut b = [9u64; 5];
+                    assert!(op.read_limbs_positioned(usize::MAX - 2, &mut b));
+                    assert_eq!(b, [0; 5]);
 
                     let value = from_limbs(&limbs, radix);
                     let text_radix = if radix == Radix::Decimal { 10 } else { 16 };
