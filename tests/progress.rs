@@ -129,9 +129,11 @@ fn bars_appear_on_a_terminal_and_are_cleared_at_the_end() {
     assert!(!raw.contains("panicked at"), "{raw}");
     // What was drawn: both bars, with a pass position, rates and ETAs.
     assert!(raw.contains("overall ["), "no overall bar in {raw}");
+    // Some pass's bar: a pass shorter than the display's redraw interval
+    // may end before its bar is drawn, so no particular one is required.
     let n = planned_passes(t.path());
     assert!(
-        raw.contains(&format!("pass 1/{n} [")),
+        (1..=n).any(|k| raw.contains(&format!("pass {k}/{n} ["))),
         "no pass bar in {raw}"
     );
     assert!(raw.contains("ETA"), "{raw}");
