@@ -23,7 +23,7 @@ use std::sync::mpsc;
 
 use rayon::prelude::*;
 
-use super::text::{put_limb, TextKind};
+use super::text::{put_limb, put_limbs_desc, TextKind};
 
 /// The limbs of a number being written.
 pub trait LimbFeed: Sync {
@@ -166,21 +166,30 @@ impl TextShape {
             let owned = (start.saturating_sub(head)).div_ceil(w) as usize;
             let own = owned.max(k0);
             fetch.seen(lo, &limbs[..k1 - own]);
+            // Positions k0..k1: a limb cut by the range's start, a run of
+            // whole ones formatted together, a limb cut by its end.
+            let whole_from = (start.max(head) - head).div_ceil(w) as usize;
+            let whole_to = (((end - head) / w) as usize).clamp(whole_from.min(k1), k1);
+            let whole_from = whole_from.min(whole_to);
+            let limb_at = |k: usize| limbs[k1 - 1 - k];
             let mut partial = [0u8; 32];
-            for (k, &x) in (k0..k1).zip(limbs.iter().rev()) {
-                let at = head + k as u64 * w;
-                if at >= start && at + w <= end {
-                    let o = (at - start) as usize;
-                    if !put_limb(self.kind, &mut dst[o..o + self.width], x) {
-                        return Err(bad_limb(self.lower - 1 - k, x));
-                    }
-                } else {
-                    if !put_limb(self.kind, &mut partial[..self.width], x) {
-                        return Err(bad_limb(self.lower - 1 - k, x));
-                    }
-                    let (s, e) = (at.max(start), (at + w).min(end));
-                    dst[(s - start) as usize..(e - start) as usize]
-                        .copy_from_slice(&partial[(s - at) as usize..(e - at) as usize]);
+            for k in (k0..whole_from).chain(whole_to..k1) {
+                let (x, at) = (limb_at(k), head + k as u64 * w);
+                if !put_limb(self.kind, &mut partial[..self.width], x) {
+                    return Err(bad_limb(self.lower - 1 - k, x));
+                }
+                let (s, e) = (at.max(start), (at + w).min(end));
+                dst[(s - start) as usize..(e - start) as usize]
+                    .copy_from_slice(&partial[(s - at) as usize..(e - at) as usize]);
+            }
+            if whole_from < whole_to {
+                let o = (head + whole_from as u64 * w - start) as usize;
+                let run = &mut dst[o..o + (whole_to - whole_from) * self.width];
+                // limbs[k1 - whole_to..k1 - whole_from], highest first
+                let desc = &limbs[k1 - whole_to..k1 - whole_from];
+                if let Err(i) = put_limbs_desc(self.kind, run, desc) {
+                    let k = k1 - 1 - (k1 - whole_to + i);
+                    return Err(bad_limb(self.lower - 1 - k, desc[i]));
                 }
             }
         }

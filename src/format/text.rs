@@ -538,6 +538,68 @@ fn hex8_ascii(x: u32) -> [u8; 8] {
     (v + 0x3030_3030_3030_3030 + letters * 39).to_be_bytes()
 }
 
+/// Formats `limbs` most significant first (`limbs[len - 1]` at the start
+/// of `out`), each at the kind's width; `Err(i)` names a limb of `limbs`
+/// that is not a digit of the radix.
+pub(crate) fn put_limbs_desc(
+    kind: TextKind,
+    out: &mut [u8],
+    limbs: &[u64],
+) -> std::result::Result<(), usize> {
+    let width = kind.width();
+    debug_assert_eq!(out.len(), width * limbs.len());
+    #[cfg(target_arch = "x86_64")]
+    if kind == TextKind::Hex && std::arch::is_x86_feature_detected!("avx2") {
+        // SAFETY: the CPU has AVX2 (checked above).
+        unsafe { hex_desc_avx2(out, limbs) };
+        return Ok(());
+    }
+    for (i, (o, &x)) in out
+        .chunks_exact_mut(width)
+        .zip(limbs.iter().rev())
+        .enumerate()
+    {
+        if !put_limb(kind, o, x) {
+            return Err(limbs.len() - 1 - i);
+        }
+    }
+    Ok(())
+}
+
+/// Hexadecimal digits of `limbs`, highest limb first, two limbs per
+/// register: the bytes of each limb in big-endian order are widened to 16
+/// bits, split into their two nibbles (high nibble in the low byte, so it
+/// lands first), and every nibble looks up its digit with one shuffle.
+#[cfg(target_arch = "x86_64")]
+#[target_feature(enable = "avx2")]
+unsafe fn hex_desc_avx2(out: &mut [u8], limbs: &[u64]) {
+    use std::arch::x86_64::*;
+    let n = limbs.len();
+    assert_eq!(out.len(), HEX_DIGITS_PER_LIMB * n);
+    let digits = _mm256_setr_epi8(
+        48, 49, 50, 51, 52, 53, 54, 55, 56, 57, 97, 98, 99, 100, 101, 102, //
+        48, 49, 50, 51, 52, 53, 54, 55, 56, 57, 97, 98, 99, 100, 101, 102,
+    );
+    let big_endian = _mm_setr_epi8(7, 6, 5, 4, 3, 2, 1, 0, 15, 14, 13, 12, 11, 10, 9, 8);
+    let low_nibble = _mm256_set1_epi16(0x0F);
+    for j in 0..n / 2 {
+        // The first limb of the pair in the text is the higher one.
+        let (first, second) = (limbs[n - 1 - 2 * j], limbs[n - 2 - 2 * j]);
+        let v = _mm_shuffle_epi8(_mm_set_epi64x(second as i64, first as i64), big_endian);
+        let w = _mm256_cvtepu8_epi16(v);
+        let nibbles = _mm256_or_si256(
+            _mm256_srli_epi16(w, 4),
+            _mm256_slli_epi16(_mm256_and_si256(w, low_nibble), 8),
+        );
+        let ascii = _mm256_shuffle_epi8(digits, nibbles);
+        // SAFETY: bytes 32j..32j + 32 lie within `out` (length 16n).
+        unsafe { _mm256_storeu_si256(out.as_mut_ptr().add(32 * j) as *mut __m256i, ascii) };
+    }
+    if n % 2 == 1 {
+        put16_hex(&mut out[16 * (n - 1)..], limbs[0]);
+    }
+}
+
 /// Formats one limb as exactly the kind's width of digits; false when the
 /// limb is not a digit of the radix (a decimal limb of 10^19 or more).
 #[inline]
@@ -614,6 +676,40 @@ mod tests {
                 }
             }
         }
+    }
+
+    /// Runs of limbs formatted together (two per vector register for
+    /// hexadecimal) equal limb-by-limb formatting, highest limb first; a
+    /// decimal run names its bad limb.
+    #[test]
+    fn limb_runs_match_single_limbs() {
+        let mut r = crate::rng::Rng::new(9);
+        for kind in [TextKind::Hex, TextKind::Decimal] {
+            let w = kind.width();
+            for n in 0..10 {
+                let limbs: Vec<u64> = (0..n)
+                    .map(|i| match (kind, i % 3) {
+                        (TextKind::Hex, 0) => u64::MAX,
+                        (TextKind::Hex, 1) => 0x0123_4567_89ab_cdef,
+                        (TextKind::Hex, _) => r.next_u64(),
+                        (TextKind::Decimal, 0) => DEC_BASE - 1,
+                        (TextKind::Decimal, _) => r.below(DEC_BASE),
+                    })
+                    .collect();
+                let mut run = vec![0u8; w * n];
+                put_limbs_desc(kind, &mut run, &limbs).unwrap();
+                let mut want = Vec::new();
+                for &x in limbs.iter().rev() {
+                    let mut one = vec![0u8; w];
+                    assert!(put_limb(kind, &mut one, x));
+                    want.extend(one);
+                }
+                assert_eq!(run, want, "{kind:?} {n}");
+            }
+        }
+        let limbs = [1, DEC_BASE, 2];
+        let mut run = vec![0u8; 19 * 3];
+        assert_eq!(put_limbs_desc(TextKind::Decimal, &mut run, &limbs), Err(1));
     }
 
     #[test]
