@@ -747,10 +747,6 @@ pub fn multiply_files(opts: &MulOptions) -> Result<MulReport> {
         }
     };
     let tap = ResidueTap::fixed(radix);
-    let feed = ProductFeed {
-        product: &product,
-        tap: &tap,
-    };
     let written = match &product {
         Product::Ram(limbs) => write_operand_file(
             out.file(),
@@ -758,9 +754,13 @@ pub fn multiply_files(opts: &MulOptions) -> Result<MulReport> {
             radix,
             negative,
             limbs,
-            &|first, limbs| feed.seen(first, limbs),
+            &|first, limbs| note_written(&tap, first, limbs),
         ),
-        Product::Disk { len, .. } => {
+        Product::Disk { store, len } => {
+            let feed = StoreFeed {
+                store: store.as_ref(),
+                tap: &tap,
+            };
             write_text_file_from(out.file(), out_format, radix, negative, *len, &feed)
         }
     }
@@ -862,39 +862,36 @@ pub fn multiply_files(opts: &MulOptions) -> Result<MulReport> {
 /// serves both.
 const _: () = assert!(FIXED_MODULI[0] == MERSENNE_61);
 
-/// The limbs of a product as the writer takes them: read from RAM or from
-/// its store (a signal stops the reading of a long one), and tapped as they
-/// are written for the self-check's and the manifest's residues and for
-/// progress.
-struct ProductFeed<'a> {
-    product: &'a Product,
+/// Told of the product's limbs as the writer writes them (each once, in
+/// windows in any order): the residues for the self-check and the
+/// manifest, and progress.
+fn note_written(tap: &ResidueTap, first: usize, limbs: &[u64]) {
+    tap.add(first, limbs);
+    METER.advance(limbs.len() as u64);
+}
+
+/// The limbs of a product on disk as the writer takes them: read from its
+/// store (a signal stops the reading of a long one) and noted as written.
+struct StoreFeed<'a> {
+    store: &'a dyn Store,
     tap: &'a ResidueTap,
 }
 
-impl LimbFeed for ProductFeed<'_> {
+impl LimbFeed for StoreFeed<'_> {
     fn read(&self, first: usize, dst: &mut [u64]) -> std::io::Result<()> {
-        match self.product {
-            Product::Ram(limbs) => {
-                dst.copy_from_slice(&limbs[first..first + dst.len()]);
-                Ok(())
-            }
-            Product::Disk { store, .. } => {
-                if crate::interrupt::requested() {
-                    return Err(std::io::Error::new(
-                        std::io::ErrorKind::Interrupted,
-                        "stopped by a signal",
-                    ));
-                }
-                store
-                    .read(first, dst)
-                    .map_err(|e| std::io::Error::other(e.to_string()))
-            }
+        if crate::interrupt::requested() {
+            return Err(std::io::Error::new(
+                std::io::ErrorKind::Interrupted,
+                "stopped by a signal",
+            ));
         }
+        self.store
+            .read(first, dst)
+            .map_err(|e| std::io::Error::other(e.to_string()))
     }
 
     fn seen(&self, first: usize, limbs: &[u64]) {
-        self.tap.add(first, limbs);
-        METER.advance(limbs.len() as u64);
+        note_written(self.tap, first, limbs);
     }
 }
 

@@ -78,8 +78,6 @@ pub(crate) struct TextShape {
     head: Vec<u8>,
     /// Limbs below the top one.
     lower: usize,
-    /// Digits per lower limb.
-    width: usize,
     kind: TextKind,
 }
 
@@ -105,7 +103,6 @@ impl TextShape {
             return Ok(TextShape {
                 head: b"0".to_vec(),
                 lower: 0,
-                width,
                 kind,
             });
         }
@@ -125,14 +122,13 @@ impl TextShape {
         Ok(TextShape {
             head,
             lower: len - 1,
-            width,
             kind,
         })
     }
 
     /// Bytes of the whole text, newline included.
     pub(crate) fn total(&self) -> u64 {
-        (self.head.len() + self.lower * self.width + 1) as u64
+        (self.head.len() + self.lower * self.kind.width() + 1) as u64
     }
 
     /// Formats bytes `start..start + dst.len()` of the text into `dst`
@@ -152,7 +148,8 @@ impl TextShape {
             let e = end.min(head);
             dst[..(e - start) as usize].copy_from_slice(&self.head[start as usize..e as usize]);
         }
-        let w = self.width as u64;
+        let width = self.kind.width();
+        let w = width as u64;
         let body_end = head + self.lower as u64 * w;
         let (bs, be) = (start.max(head), end.min(body_end));
         if bs < be {
@@ -162,20 +159,19 @@ impl TextShape {
             let lo = self.lower - k1;
             limbs.resize(k1 - k0, 0);
             fetch.read(lo, limbs)?;
-            // The limbs whose text starts in this range are this range's.
-            let owned = (start.saturating_sub(head)).div_ceil(w) as usize;
-            let own = owned.max(k0);
-            fetch.seen(lo, &limbs[..k1 - own]);
+            // The first position whose text starts in this range: the limbs
+            // from there on are this range's to report, and (up to the
+            // range's end) whole in it.
+            let whole_from = (bs - head).div_ceil(w) as usize;
+            fetch.seen(lo, &limbs[..k1 - whole_from]);
             // Positions k0..k1: a limb cut by the range's start, a run of
             // whole ones formatted together, a limb cut by its end.
-            let whole_from = (start.max(head) - head).div_ceil(w) as usize;
-            let whole_to = (((end - head) / w) as usize).clamp(whole_from.min(k1), k1);
-            let whole_from = whole_from.min(whole_to);
+            let whole_to = (((end - head) / w) as usize).clamp(whole_from, k1);
             let limb_at = |k: usize| limbs[k1 - 1 - k];
             let mut partial = [0u8; 32];
             for k in (k0..whole_from).chain(whole_to..k1) {
                 let (x, at) = (limb_at(k), head + k as u64 * w);
-                if !put_limb(self.kind, &mut partial[..self.width], x) {
+                if !put_limb(self.kind, &mut partial[..width], x) {
                     return Err(bad_limb(self.lower - 1 - k, x));
                 }
                 let (s, e) = (at.max(start), (at + w).min(end));
@@ -184,7 +180,7 @@ impl TextShape {
             }
             if whole_from < whole_to {
                 let o = (head + whole_from as u64 * w - start) as usize;
-                let run = &mut dst[o..o + (whole_to - whole_from) * self.width];
+                let run = &mut dst[o..o + (whole_to - whole_from) * width];
                 // limbs[k1 - whole_to..k1 - whole_from], highest first
                 let desc = &limbs[k1 - whole_to..k1 - whole_from];
                 if let Err(i) = put_limbs_desc(self.kind, run, desc) {
