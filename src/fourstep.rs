@@ -235,34 +235,20 @@ enum PrimeArith {
 }
 
 impl PrimeArith {
-    /// `buf = raw` reduced for a forward transform (`[0, 2p)`).
-    fn reduce_into(&self, raw: &[u64], buf: &mut [u64]) {
+    /// `buf` = the digits of the limbs `raw` for a forward transform
+    /// (`[0, 2p)`). For the balanced 50-bit sets, bit 0 of `flags[i]` adds
+    /// the carry in and bit 1 takes one base off (see [`balance_flags`]);
+    /// the 62-bit set takes plain limbs and no flags.
+    fn digits_into(&self, raw: &[u64], flags: &[u8], buf: &mut [u64]) {
         match self {
             PrimeArith::Wide(t) => {
                 for (b, r) in buf.iter_mut().zip(raw) {
                     *b = t.modulus.reduce_lazy(*r);
                 }
             }
-            PrimeArith::Narrow(t) => {
-                buf.copy_from_slice(raw);
-                t.kernel.reduce_words(buf, &t.modulus);
-            }
-        }
-    }
-
-    /// Turns `buf`, limbs reduced into `[0, 2p)`, into their balanced
-    /// digits modulo p (`[0, 2p)` again): bit 0 of `flags[i]` adds the carry
-    /// in, bit 1 takes one base off (see [`balance_flags`]).
-    fn balance(&self, buf: &mut [u64], flags: &[u8]) {
-        if let PrimeArith::Narrow(t) = self {
-            let (two_p, neg_base) = (2 * t.modulus.p, t.neg_base);
-            // [0, 2p) + 1 + (p - base mod p) < 3p + 1: one subtraction of
-            // 2p at most brings it back.
-            for (b, &f) in buf.iter_mut().zip(flags) {
-                let borrow = ((f >> 1) as u64).wrapping_neg() & neg_base;
-                let v = *b + (f & 1) as u64 + borrow;
-                *b = if v >= two_p { v - two_p } else { v };
-            }
+            PrimeArith::Narrow(t) => t
+                .kernel
+                .digits_into(raw, flags, t.neg_base, buf, &t.modulus),
         }
     }
 
@@ -571,7 +557,6 @@ impl FourStep {
                 for (n1, seg) in raw.chunks_exact_mut(lanes).enumerate().take(live_rows) {
                     limbs.fill_limbs(cols * n1 + c0, seg);
                 }
-                raw[live_rows * lanes..].fill(0);
                 if let Some(half) = self.balance_half {
                     let seg = Segments {
                         lanes,
@@ -586,10 +571,16 @@ impl FourStep {
                         continue;
                     }
                     let t = &self.tables[k];
-                    t.reduce_into(raw, buf);
-                    if self.balance_half.is_some() {
-                        t.balance(buf, flags);
-                    }
+                    // Rows past the operand are zero: only the live ones
+                    // are read and reduced.
+                    let live = live_rows * lanes;
+                    let live_flags = if flags.is_empty() {
+                        &[][..]
+                    } else {
+                        &flags[..live]
+                    };
+                    t.digits_into(&raw[..live], live_flags, &mut buf[..live]);
+                    buf[live..].fill(0);
                     t.forward_columns(buf, lanes);
                     for (n1, seg) in buf.chunks_exact(lanes).enumerate() {
                         store.write(cols * n1 + c0, seg)?;

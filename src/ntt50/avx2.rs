@@ -92,13 +92,14 @@ pub fn pointwise(a: &mut [u64], b: &[u64], scale: u64, m: &Modulus50) {
     unsafe { pointwise_all(a, b, scale, m) }
 }
 
-/// `a[i] = a[i] mod p` lazily, into `[0, 2p)`, for any 64-bit words.
-/// Panics if the CPU lacks AVX2 or FMA.
-pub fn reduce_words(a: &mut [u64], m: &Modulus50) {
+/// [`scalar::digits_into`], four limbs at a time. Panics if the CPU lacks
+/// AVX2 or FMA, or the lengths differ.
+pub fn digits_into(src: &[u64], flags: &[u8], neg_base: u64, dst: &mut [u64], m: &Modulus50) {
+    super::check_digits(src, flags, neg_base, dst, m);
     require(Kernel::Avx2);
     // SAFETY: `require` checked that the CPU has every feature the callee
     // is compiled for.
-    unsafe { reduce_all(a, m) }
+    unsafe { digits_all(src, flags, neg_base, dst, m) }
 }
 
 /// The radix-3 step of a forward transform of length `3m`: `[0, 2p)` in
@@ -664,20 +665,32 @@ fn reduce_word_vector(x: __m256i, c: Tw, k: Consts) -> D {
 }
 
 #[target_feature(enable = "avx2,fma")]
-fn reduce_all(a: &mut [u64], m: &Modulus50) {
+fn digits_all(src: &[u64], flags: &[u8], neg_base: u64, dst: &mut [u64], m: &Modulus50) {
     let (k, c) = (consts(m), splat_tw(scalar::word_split(m)));
-    let (xs, x) = a.as_chunks_mut::<W>();
-    for xv in xs.iter_mut() {
-        // SAFETY: `xv` is W initialised words; the load is unaligned.
-        let v = unsafe { _mm256_loadu_si256(xv.as_ptr().cast()) };
-        store(xv, reduce_word_vector(v, c, k), k);
+    let nb = _mm256_set1_epi64x(neg_base as i64);
+    let (one, two) = (_mm256_set1_epi64x(1), _mm256_set1_epi64x(2));
+    let two_p = _mm256_set1_epi64x(m.two_p as i64);
+    let below_two_p = _mm256_set1_epi64x(m.two_p as i64 - 1);
+    let (xs, x_rest) = src.as_chunks::<W>();
+    let (fs, f_rest) = flags.as_chunks::<W>();
+    let (ds, d_rest) = dst.as_chunks_mut::<W>();
+    for ((x, f), d) in xs.iter().zip(fs).zip(ds.iter_mut()) {
+        // SAFETY: `x` is W initialised words; the load is unaligned.
+        let v = unsafe { _mm256_loadu_si256(x.as_ptr().cast()) };
+        let r = to_u64(reduce_word_vector(v, c, k), k);
+        let f = _mm256_cvtepu8_epi64(_mm_cvtsi32_si128(i32::from_le_bytes(*f)));
+        let carry = _mm256_and_si256(f, one);
+        let borrow = _mm256_and_si256(_mm256_cmpeq_epi64(_mm256_and_si256(f, two), two), nb);
+        // below 3p + 1 < 2^52: a signed compare is exact
+        let s = _mm256_add_epi64(_mm256_add_epi64(r, carry), borrow);
+        let over = _mm256_cmpgt_epi64(s, below_two_p);
+        let s = _mm256_sub_epi64(s, _mm256_and_si256(over, two_p));
+        // SAFETY: `d` is W writable words; the store is unaligned.
+        unsafe { _mm256_storeu_si256(d.as_mut_ptr().cast(), s) }
     }
-    if !x.is_empty() {
-        let mask = part_mask(x.len());
-        // SAFETY: the mask enables only lanes below `x.len()`; masked-off
-        // lanes are neither read nor able to fault.
-        let v = unsafe { _mm256_maskload_epi64(x.as_ptr().cast(), mask) };
-        store_part(x, reduce_word_vector(v, c, k), k);
+    let c = scalar::word_split(m);
+    for ((d, &x), &f) in d_rest.iter_mut().zip(x_rest).zip(f_rest) {
+        *d = scalar::digit(x, f, neg_base, c, m);
     }
 }
 

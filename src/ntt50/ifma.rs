@@ -81,13 +81,14 @@ pub fn pointwise(a: &mut [u64], b: &[u64], scale: u64, m: &Modulus50) {
     unsafe { pointwise_all(a, b, scale, m) }
 }
 
-/// `a[i] = a[i] mod p` lazily, into `[0, 2p)`, for any 64-bit words.
-/// Panics if the CPU lacks IFMA.
-pub fn reduce_words(a: &mut [u64], m: &Modulus50) {
+/// [`scalar::digits_into`], eight limbs at a time. Panics if the CPU lacks
+/// IFMA, or the lengths differ.
+pub fn digits_into(src: &[u64], flags: &[u8], neg_base: u64, dst: &mut [u64], m: &Modulus50) {
+    super::check_digits(src, flags, neg_base, dst, m);
     require(Kernel::Ifma);
     // SAFETY: `require` checked that the CPU has every feature the callee
     // is compiled for.
-    unsafe { reduce_all(a, m) }
+    unsafe { digits_all(src, flags, neg_base, dst, m) }
 }
 
 /// Garner's mixed-radix digits of four residue streams, eight positions at
@@ -691,14 +692,24 @@ fn reduce_word_vector(x: V, c: Tw, k: Consts) -> V {
 }
 
 #[target_feature(enable = "avx512f,avx512ifma,avx512vl")]
-fn reduce_all(a: &mut [u64], m: &Modulus50) {
+fn digits_all(src: &[u64], flags: &[u8], neg_base: u64, dst: &mut [u64], m: &Modulus50) {
     let (k, c) = (consts(m), splat_tw(scalar::word_split(m)));
-    let (xs, x) = a.as_chunks_mut::<W>();
-    for xv in xs.iter_mut() {
-        store(xv, reduce_word_vector(load(xv), c, k));
+    let (nb, one, two) = (splat(neg_base), splat(1), splat(2));
+    let (xs, x_rest) = src.as_chunks::<W>();
+    let (fs, f_rest) = flags.as_chunks::<W>();
+    let (ds, d_rest) = dst.as_chunks_mut::<W>();
+    for ((x, f), d) in xs.iter().zip(fs).zip(ds.iter_mut()) {
+        let r = reduce_word_vector(load(x), c, k);
+        // SAFETY: `f` is W = 8 initialised bytes, what the load reads.
+        let f = _mm512_cvtepu8_epi64(unsafe { _mm_loadl_epi64(f.as_ptr().cast()) });
+        let s = _mm512_add_epi64(r, _mm512_and_si512(f, one));
+        let s = _mm512_mask_add_epi64(s, _mm512_test_epi64_mask(f, two), s, nb);
+        // [0, 2p) + 1 + neg_base < 3p + 1: one subtraction of 2p at most
+        store(d, reduce_2p(s, k));
     }
-    if !x.is_empty() {
-        store_part(x, reduce_word_vector(load_part(x), c, k));
+    let c = scalar::word_split(m);
+    for ((d, &x), &f) in d_rest.iter_mut().zip(x_rest).zip(f_rest) {
+        *d = scalar::digit(x, f, neg_base, c, m);
     }
 }
 

@@ -671,16 +671,25 @@ impl Kernel {
         }
     }
 
-    /// `a[i] = a[i] mod p` lazily, into `[0, 2p)`, for any 64-bit words:
-    /// operand limbs on their way into a forward transform. Panics if the
-    /// path is unsupported.
-    pub fn reduce_words(self, a: &mut [u64], m: &Modulus50) {
+    /// `dst[i]` = the digit of limb `src[i]` modulo p, into `[0, 2p)`:
+    /// `src[i]`, plus 1 where bit 0 of `flags[i]` is set, plus `neg_base`
+    /// (`p - (base mod p)`, below p) where bit 1 is. Operand limbs on their
+    /// way into a forward transform, reduced and balanced in one pass.
+    /// Panics if the path is unsupported or the lengths differ.
+    pub fn digits_into(
+        self,
+        src: &[u64],
+        flags: &[u8],
+        neg_base: u64,
+        dst: &mut [u64],
+        m: &Modulus50,
+    ) {
         match self {
-            Kernel::Scalar => scalar::reduce_words(a, m),
+            Kernel::Scalar => scalar::digits_into(src, flags, neg_base, dst, m),
             #[cfg(target_arch = "x86_64")]
-            Kernel::Avx2 => avx2::reduce_words(a, m),
+            Kernel::Avx2 => avx2::digits_into(src, flags, neg_base, dst, m),
             #[cfg(target_arch = "x86_64")]
-            Kernel::Ifma => ifma::reduce_words(a, m),
+            Kernel::Ifma => ifma::digits_into(src, flags, neg_base, dst, m),
             #[cfg(not(target_arch = "x86_64"))]
             _ => unsupported(self),
         }
@@ -711,8 +720,8 @@ pub type TransformFn = fn(&mut [u64], &Twiddles);
 pub type LanesFn = fn(&mut [u64], usize, &Twiddles);
 /// The type of every path's `pointwise`.
 pub type PointwiseFn = fn(&mut [u64], &[u64], u64, &Modulus50);
-/// The type of every path's `reduce_words`.
-pub type ReduceWordsFn = fn(&mut [u64], &Modulus50);
+/// The type of every path's `digits_into`.
+pub type DigitsIntoFn = fn(&[u64], &[u8], u64, &mut [u64], &Modulus50);
 /// The type of every path's `twiddle_powers`.
 pub type TwiddlePowersFn = fn(&mut [u64], u64, &Modulus50);
 
@@ -746,7 +755,16 @@ const _: [TwiddlePowersFn; 3] = [
 ];
 
 #[cfg(target_arch = "x86_64")]
-const _: [ReduceWordsFn; 3] = [scalar::reduce_words, avx2::reduce_words, ifma::reduce_words];
+const _: [DigitsIntoFn; 3] = [scalar::digits_into, avx2::digits_into, ifma::digits_into];
+
+/// The shared preconditions of every path's `digits_into`.
+fn check_digits(src: &[u64], flags: &[u8], neg_base: u64, dst: &[u64], m: &Modulus50) {
+    assert!(
+        src.len() == dst.len() && flags.len() == dst.len(),
+        "digit buffers differ in length"
+    );
+    assert!(neg_base < m.p, "neg_base is not reduced below p");
+}
 
 #[cfg(test)]
 mod tests;

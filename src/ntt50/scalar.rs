@@ -122,14 +122,28 @@ pub(crate) fn word_split(m: &Modulus50) -> super::MulConst {
     super::MulConst::new((1u64 << 32) % m.p, m)
 }
 
-/// `a[i] = a[i] mod p` lazily, into `[0, 2p)`, for any 64-bit words.
-pub fn reduce_words(a: &mut [u64], m: &Modulus50) {
+/// `dst[i]` = the digit of limb `src[i]` modulo p, into `[0, 2p)`:
+/// `src[i]` plus 1 where bit 0 of `flags[i]` is set (a carry in), plus
+/// `neg_base` where bit 1 is (a base given away, `neg_base` being
+/// `p - (base mod p)`). Operand limbs on their way into a forward
+/// transform, read, reduced and balanced in one pass.
+pub fn digits_into(src: &[u64], flags: &[u8], neg_base: u64, dst: &mut [u64], m: &Modulus50) {
+    super::check_digits(src, flags, neg_base, dst, m);
     let c = word_split(m);
-    for x in a.iter_mut() {
-        // below 2p + 2^32 < 3p
-        let r = mul_shoup(*x >> 32, c.w, c.q, m) + (*x & 0xffff_ffff);
-        *x = if r >= m.two_p { r - m.two_p } else { r };
+    for ((d, &x), &f) in dst.iter_mut().zip(src).zip(flags) {
+        *d = digit(x, f, neg_base, c, m);
     }
+}
+
+/// One digit of [`digits_into`], for the vector paths' partial vectors too.
+#[inline(always)]
+pub(crate) fn digit(x: u64, f: u8, neg_base: u64, c: super::MulConst, m: &Modulus50) -> u64 {
+    // below 2p + 2^32 < 3p
+    let r = mul_shoup(x >> 32, c.w, c.q, m) + (x & 0xffff_ffff);
+    let r = reduce_2p(r, m);
+    // [0, 2p) + 1 + neg_base < 3p + 1: one subtraction of 2p at most
+    let borrow = ((f >> 1) & 1) as u64 * neg_base;
+    reduce_2p(r + (f & 1) as u64 + borrow, m)
 }
 
 /// `[0, 4p)` to `[0, 2p)`.

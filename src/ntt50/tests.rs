@@ -547,10 +547,12 @@ fn twiddle_powers_of_three_by_hand() {
     }
 }
 
-/// `k`'s word reduction against `%`: every length up to 40 (partial
+/// `k`'s limb digits against `%` in u128: every length up to 40 (partial
 /// vectors), words across the whole 64-bit range with the edges (0, `p`,
-/// `2p`, `2^32`, `2^64 - 1` and their neighbours), guard words around.
-fn reduce_words_match_remainder(k: Kernel) {
+/// `2p`, `2^32`, `2^64 - 1` and their neighbours), every flag combination,
+/// `neg_base` at 0, 1, `p - 1` and the binary and decimal bases' values,
+/// guard words around the output.
+fn digits_match_remainder(k: Kernel) {
     for (pi, pr) in PRIMES.iter().enumerate() {
         let p = pr.modulus.p;
         let edges = [
@@ -570,38 +572,51 @@ fn reduce_words_match_remainder(k: Kernel) {
             u64::MAX / p * p,
             (u64::MAX / p - 1) * p - 1,
         ];
-        for len in (0..=40).chain([1000, 4099]) {
-            let mut x = seeded_words(len, (pi * 1000 + len) as u64);
-            for (i, v) in x.iter_mut().enumerate().step_by(3) {
-                *v = edges[i % edges.len()];
-            }
-            let mut g = Guarded::new(&x);
-            k.reduce_words(g.data(), &pr.modulus);
-            for (j, (got, want)) in g.finish().iter().zip(&x).enumerate() {
-                let what = format!("{k:?} p{pi} len={len} j={j} x={want}");
-                assert!(*got < 2 * p, "{what}: {got} out of range");
-                assert_eq!(got % p, want % p, "{what}");
+        let binary = p - ((1u128 << 64) % p as u128) as u64;
+        let decimal = p - 10_000_000_000_000_000_000 % p;
+        for neg_base in [0, 1, p - 1, binary, decimal] {
+            for len in (0..=40).chain([1000, 4099]) {
+                let seed = (pi * 1000 + len) as u64 ^ neg_base;
+                let mut x = seeded_words(len, seed);
+                for (i, v) in x.iter_mut().enumerate().step_by(3) {
+                    *v = edges[i % edges.len()];
+                }
+                let flags: Vec<u8> = seeded_words(len, seed + 1)
+                    .iter()
+                    .map(|w| (w % 4) as u8)
+                    .collect();
+                let mut g = Guarded::new(&vec![GARBAGE; len]);
+                k.digits_into(&x, &flags, neg_base, g.data(), &pr.modulus);
+                for (j, got) in g.finish().iter().enumerate() {
+                    let f = flags[j];
+                    let want =
+                        (x[j] as u128 + (f & 1) as u128 + (f >> 1) as u128 * neg_base as u128)
+                            % p as u128;
+                    let what = format!("{k:?} p{pi} len={len} j={j} x={} f={f}", x[j]);
+                    assert!(*got < 2 * p, "{what}: {got} out of range");
+                    assert_eq!((got % p) as u128, want, "{what}");
+                }
             }
         }
     }
 }
 
 #[test]
-fn scalar_reduce_words_match_remainder() {
-    reduce_words_match_remainder(Kernel::Scalar);
+fn scalar_digits_match_remainder() {
+    digits_match_remainder(Kernel::Scalar);
 }
 
 #[test]
-fn avx2_reduce_words_match_remainder() {
+fn avx2_digits_match_remainder() {
     if !skip(Kernel::Avx2) {
-        reduce_words_match_remainder(Kernel::Avx2);
+        digits_match_remainder(Kernel::Avx2);
     }
 }
 
 #[test]
-fn ifma_reduce_words_match_remainder() {
+fn ifma_digits_match_remainder() {
     if !skip(Kernel::Ifma) {
-        reduce_words_match_remainder(Kernel::Ifma);
+        digits_match_remainder(Kernel::Ifma);
     }
 }
 
