@@ -28,8 +28,11 @@ for r in $(seq "$reps"); do
   n=0
   for b in "$@"; do
     n=$((n + 1))
+    # A fresh output path each time, as a user's run would have: replacing
+    # the last product would add the freeing of its blocks to the write.
+    rm -f "$dir/product.txt"
     "$b" -q mul "$dir/hex-$digits-1.txt" "$dir/hex-$digits-2.txt" -o "$dir/product.txt" \
-      --force --threads "$threads" --json > "$dir/report-$n-$r.json"
+      --threads "$threads" --json > "$dir/report-$n-$r.json"
   done
 done
 python3 - "$dir" "$reps" "$@" <<'PY'

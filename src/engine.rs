@@ -2,6 +2,7 @@
 //! sources, and the convenience entry points on limb slices.
 
 use crate::carry::{self, U192};
+use crate::format::text::TextKind;
 use crate::fourstep::{BlockLog, FourStep, Metered, NoLog, Shape};
 use crate::ooc::OutOfCore;
 use crate::pieces;
@@ -12,6 +13,7 @@ use crate::schoolbook;
 use crate::scratch::FileSpace;
 pub use crate::storage::LimbSource;
 use crate::storage::{RamStore, Store, WordBuf};
+pub use crate::streamed::StreamedProduct;
 use crate::Result;
 use rayon::prelude::*;
 use std::path::Path;
@@ -131,7 +133,9 @@ where
             ..
         } => match execute_to(plan, a, b, Path::new("."))? {
             Product::Ram(w) => w,
-            Product::Disk { .. } => unreachable!("the plan keeps the product in RAM"),
+            Product::Streamed(_) | Product::Disk { .. } => {
+                unreachable!("the plan keeps the product in RAM")
+            }
         },
         Algorithm::OutOfCore { .. } | Algorithm::Pieces { .. } => {
             return Err(crate::Error::usage(
@@ -193,10 +197,23 @@ where
     fs.check_zero_tail(&refs, la + lb - 1)
 }
 
-/// The NTT in RAM: [`transform_passes`] over RAM stores, then the CRT and
-/// carry pass write the limbs into the store B used (or a new buffer for a
-/// square).
-fn ntt_product<A, B>(plan: &Plan, shape: Shape, a: &A, b: &B, timer: &mut Timer) -> Result<WordBuf>
+/// What the transform passes in RAM leave: the residues of the
+/// convolution, one buffer per prime, and the store B used (none for a
+/// square), free for the product's limbs.
+struct Residues {
+    fs: FourStep,
+    residues: Vec<WordBuf>,
+    spare: Option<RamStore>,
+}
+
+/// [`transform_passes`] over RAM stores.
+fn ntt_residues<A, B>(
+    plan: &Plan,
+    shape: Shape,
+    a: &A,
+    b: &B,
+    timer: &mut Timer,
+) -> Result<Residues>
 where
     A: LimbSource + ?Sized,
     B: LimbSource + ?Sized,
@@ -204,7 +221,6 @@ where
     let (la, lb) = (plan.a_limbs, plan.b_limbs);
     let fs = FourStep::new(shape, plan.prime_set, plan.radix);
     let n = shape.len();
-    let count = la + lb - 1;
     let stores_a: Vec<RamStore> = (0..fs.prime_count()).map(|_| RamStore::zeroed(n)).collect();
     let spare = (!plan.square).then(|| RamStore::zeroed(n.max(plan.product_limbs)));
     // B is read once per prime: decode it once (text parsing is not free),
@@ -228,7 +244,27 @@ where
         timer,
     )?;
     // The residues are only read from here on: plain slices, with no copy.
-    let residues: Vec<WordBuf> = stores_a.into_iter().map(RamStore::into_words).collect();
+    let residues = stores_a.into_iter().map(RamStore::into_words).collect();
+    Ok(Residues {
+        fs,
+        residues,
+        spare,
+    })
+}
+
+/// The NTT in RAM: [`ntt_residues`], then the CRT and carry pass write the
+/// limbs into the store B used (or a new buffer for a square).
+fn ntt_product<A, B>(plan: &Plan, shape: Shape, a: &A, b: &B, timer: &mut Timer) -> Result<WordBuf>
+where
+    A: LimbSource + ?Sized,
+    B: LimbSource + ?Sized,
+{
+    let Residues {
+        fs,
+        residues,
+        spare,
+    } = ntt_residues(plan, shape, a, b, timer)?;
+    let count = plan.a_limbs + plan.b_limbs - 1;
     let views: Vec<&[u64]> = residues.iter().map(|w| &w[..]).collect();
     let mut out = match spare {
         Some(s) => s.into_words(),
@@ -268,6 +304,9 @@ where
 pub enum Product {
     /// Limbs in RAM, no leading zeros.
     Ram(WordBuf),
+    /// Residues in RAM whose limbs are carried as the text writer asks for
+    /// them, the text's length known ([`StreamedProduct::layout`]).
+    Streamed(Box<StreamedProduct>),
     /// Limbs in a scratch store, `len` significant.
     Disk {
         /// The store holding the limbs from word 0.
@@ -282,6 +321,7 @@ impl Product {
     pub fn len(&self) -> usize {
         match self {
             Product::Ram(w) => w.len(),
+            Product::Streamed(p) => p.layout().map_or(0, |(len, _)| len),
             Product::Disk { len, .. } => *len,
         }
     }
@@ -339,6 +379,40 @@ where
             .pass("schoolbook convolution and carry", || execute(plan, a, b))
             .map(Product::Ram),
     }
+}
+
+/// [`execute_timed`], except that an NTT product in RAM is left as
+/// residues to be carried while it is written as `kind` text
+/// ([`Product::Streamed`]), when the text's length is known beforehand.
+/// Other plans, and products whose layout the top coefficients do not
+/// settle, come as `execute_timed` gives them.
+pub(crate) fn execute_streamed<A, B>(
+    plan: &Plan,
+    a: &A,
+    b: &B,
+    scratch_dir: &Path,
+    timer: &mut Timer,
+    kind: TextKind,
+) -> Result<Product>
+where
+    A: LimbSource + ?Sized,
+    B: LimbSource + ?Sized,
+{
+    let Algorithm::Ntt { shape } = plan.algorithm else {
+        return execute_timed(plan, a, b, scratch_dir, timer);
+    };
+    let r = ntt_residues(plan, shape, a, b, timer)?;
+    let count = plan.a_limbs + plan.b_limbs - 1;
+    let limbs = r
+        .spare
+        .unwrap_or_else(|| RamStore::zeroed(plan.product_limbs));
+    let p = StreamedProduct::new(r.fs, r.residues, count, plan.radix, limbs, kind)?;
+    if p.layout().is_some() {
+        return Ok(Product::Streamed(Box::new(p)));
+    }
+    timer
+        .pass("CRT and carry", || p.into_limbs())
+        .map(|w| Product::Ram(trim(w)))
 }
 
 /// Distinct names for one run's scratch files.

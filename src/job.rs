@@ -2,11 +2,11 @@
 //! and write the product atomically in the requested format.
 
 use crate::engine::{self, LimbSource};
-use crate::engine::{PassTime, Product, Timer};
+use crate::engine::{PassTime, Product, StreamedProduct, Timer};
 use crate::faults::FaultySpace;
 use crate::format::{
-    format_radix_compatible, write_operand_file, write_text_file_from, Format, LimbFeed, Operand,
-    Released,
+    format_radix_compatible, text::TextKind, write_operand_file, write_text_file_from,
+    write_text_file_rising, Format, LimbFeed, Operand, Released,
 };
 use crate::ooc::{OutOfCore, Space};
 use crate::output::{ensure_distinct, AtomicOutput};
@@ -158,6 +158,10 @@ pub struct MulReport {
     pub operands: Vec<crate::state::OperandId>,
     /// True when the run continued from an interrupted run's state.
     pub resumed: bool,
+    /// True when the product was carried while it was written (its text's
+    /// length settled by its top coefficients); false when it was made
+    /// whole first.
+    pub streamed: bool,
     /// Wall time of the whole job.
     pub wall_seconds: f64,
     /// Peak resident memory of the process, from the kernel.
@@ -603,6 +607,10 @@ pub fn multiply_files(opts: &MulOptions) -> Result<MulReport> {
     let mut resumed_at = None;
     let mut resume_notes = Vec::new();
     let mut identify_seconds = 0.0;
+    // A product in RAM written as text is carried while it is written; a
+    // tampered one (for tests of the self-check) is made whole first.
+    let stream = crate::format::text_kind(out_format)
+        .filter(|_| opts.tamper.is_none() && format_radix_compatible(out_format, radix));
     let product = match plan.algorithm {
         Algorithm::OutOfCore { .. } if !opts.checkpoint => {
             engine::execute_timed(&plan, &Released(a), &Released(b), &dir, &mut timer)?
@@ -670,11 +678,11 @@ pub fn multiply_files(opts: &MulOptions) -> Result<MulReport> {
             let product = if plan.release_inputs {
                 ta = TapM61::new(&ra as &dyn LimbSource, radix);
                 tb = TapM61::new(&rb as &dyn LimbSource, radix);
-                engine::execute_timed(&plan, &ta, &tb, &dir, &mut timer)?
+                execute_in_ram(&plan, &ta, &tb, &dir, &mut timer, stream)?
             } else {
                 ta = TapM61::new(a as &dyn LimbSource, radix);
                 tb = TapM61::new(b as &dyn LimbSource, radix);
-                engine::execute_timed(&plan, &ta, &tb, &dir, &mut timer)?
+                execute_in_ram(&plan, &ta, &tb, &dir, &mut timer, stream)?
             };
             tapped = Some((
                 ta.value(),
@@ -683,9 +691,9 @@ pub fn multiply_files(opts: &MulOptions) -> Result<MulReport> {
             product
         }
         _ if plan.release_inputs => {
-            engine::execute_timed(&plan, &Released(a), &Released(b), &dir, &mut timer)?
+            execute_in_ram(&plan, &Released(a), &Released(b), &dir, &mut timer, stream)?
         }
-        _ => engine::execute_timed(&plan, a, b, &dir, &mut timer)?,
+        _ => execute_in_ram(&plan, a, b, &dir, &mut timer, stream)?,
     };
     let compute_seconds = compute.elapsed().as_secs_f64();
 
@@ -733,6 +741,8 @@ pub fn multiply_files(opts: &MulOptions) -> Result<MulReport> {
     // manifest.
     let top = match &product {
         Product::Ram(limbs) => limbs.last().copied().unwrap_or(0),
+        // Not made yet: read once the product is written.
+        Product::Streamed(_) => 0,
         Product::Disk { store, len } => {
             let mut top = [0u64];
             if *len > 0 {
@@ -756,6 +766,14 @@ pub fn multiply_files(opts: &MulOptions) -> Result<MulReport> {
             limbs,
             &|first, limbs| note_written(&tap, first, limbs),
         ),
+        Product::Streamed(p) => {
+            let feed = StreamFeed {
+                product: p,
+                tap: &tap,
+            };
+            let layout = p.layout().expect("a streamed product is laid out");
+            write_text_file_rising(out.file(), out_format, radix, negative, layout, &feed)
+        }
         Product::Disk { store, len } => {
             let feed = StoreFeed {
                 store: store.as_ref(),
@@ -765,7 +783,15 @@ pub fn multiply_files(opts: &MulOptions) -> Result<MulReport> {
         }
     }
     .map_err(|e| {
-        let e = if crate::interrupt::requested() {
+        // A failure of the CRT or the carry under the writer is reported
+        // as itself, not as a failure to write.
+        let made = match &product {
+            Product::Streamed(p) => p.take_failure(),
+            _ => None,
+        };
+        let e = if let Some(made) = made {
+            made
+        } else if crate::interrupt::requested() {
             Error::Interrupted {
                 what: String::new(),
                 resume: String::new(),
@@ -790,6 +816,15 @@ pub fn multiply_files(opts: &MulOptions) -> Result<MulReport> {
         }
     })?;
     METER.end();
+    let (top, carry_seconds) = match &product {
+        Product::Streamed(p) => {
+            let mut t = [0u64];
+            p.read(product.len() - 1, &mut t)
+                .map_err(|e| Error::io(&target, e))?;
+            (t[0], Some(p.carry_seconds()))
+        }
+        _ => (top, None),
+    };
     let product_residues = tap.values();
     if let Some(sc) = self_check.as_mut() {
         let t0 = Instant::now();
@@ -821,9 +856,20 @@ pub fn multiply_files(opts: &MulOptions) -> Result<MulReport> {
         }
         operands = st.operands;
     }
+    // A streamed product ran its CRT and carry inside the write: the time
+    // they took is theirs, the rest the write's.
+    let write_seconds = write.elapsed().as_secs_f64();
+    if let Some(carry) = carry_seconds {
+        timer.passes.push(PassTime {
+            name: "CRT and carry".into(),
+            seconds: carry,
+            read_bytes: 0,
+            write_bytes: 0,
+        });
+    }
     timer.passes.push(PassTime {
         name: "write the product".into(),
-        seconds: write.elapsed().as_secs_f64(),
+        seconds: write_seconds - carry_seconds.unwrap_or(0.0),
         read_bytes: 0,
         write_bytes: 0,
     });
@@ -852,10 +898,31 @@ pub fn multiply_files(opts: &MulOptions) -> Result<MulReport> {
         product: product_manifest,
         operands,
         resumed,
+        streamed: carry_seconds.is_some(),
         wall_seconds: started.elapsed().as_secs_f64(),
         peak_rss_bytes: crate::usage::peak_rss_bytes(),
         io: crate::usage::process_io(),
     })
+}
+
+/// [`engine::execute_timed`], or [`engine::execute_streamed`] when the
+/// product is to be written as `stream` text.
+fn execute_in_ram<A, B>(
+    plan: &Plan,
+    a: &A,
+    b: &B,
+    dir: &Path,
+    timer: &mut Timer,
+    stream: Option<TextKind>,
+) -> Result<Product>
+where
+    A: LimbSource + ?Sized,
+    B: LimbSource + ?Sized,
+{
+    match stream {
+        Some(kind) => engine::execute_streamed(plan, a, b, dir, timer, kind),
+        None => engine::execute_timed(plan, a, b, dir, timer),
+    }
 }
 
 /// The self-check's modulus is the first of the manifest's, so one tap
@@ -872,6 +939,26 @@ fn note_written(tap: &ResidueTap, first: usize, limbs: &[u64]) {
 
 /// The limbs of a product on disk as the writer takes them: read from its
 /// store (a signal stops the reading of a long one) and noted as written.
+/// A streamed product's limbs for the writer, tapped as they are written.
+struct StreamFeed<'a> {
+    product: &'a StreamedProduct,
+    tap: &'a ResidueTap,
+}
+
+impl LimbFeed for StreamFeed<'_> {
+    fn read(&self, first: usize, out: &mut [u64]) -> std::io::Result<()> {
+        self.product.read(first, out)
+    }
+
+    fn prepare(&self, end: usize) -> std::io::Result<()> {
+        self.product.prepare(end)
+    }
+
+    fn seen(&self, first: usize, limbs: &[u64]) {
+        note_written(self.tap, first, limbs);
+    }
+}
+
 struct StoreFeed<'a> {
     store: &'a dyn Store,
     tap: &'a ResidueTap,
@@ -957,6 +1044,7 @@ fn tamper(product: &mut Product, negative: &mut bool, t: Tamper) -> Result<()> {
                 Tamper::FlipSign => unreachable!(),
             }
         }
+        (Product::Streamed(_), _) => unreachable!("a tampered product is made whole first"),
     }
     Ok(())
 }

@@ -49,6 +49,7 @@ pub mod plan;
 pub mod primeset;
 pub mod schoolbook;
 pub mod storage;
+pub mod streamed;
 #[cfg(test)]
 pub(crate) mod test_oracles;
 pub use engine::multiply;

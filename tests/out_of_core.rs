@@ -37,7 +37,9 @@ fn ooc_multiply(a: &[u64], b: &[u64], radix: Radix, memory: u64, dir: &Path) -> 
             store.read(0, &mut v).unwrap();
             v
         }
-        Product::Ram(_) => panic!("an out-of-core plan returned a product in RAM"),
+        Product::Ram(_) | Product::Streamed(_) => {
+            panic!("an out-of-core plan returned a product in RAM")
+        }
     };
     drop(product);
     let left: Vec<_> = std::fs::read_dir(dir).unwrap().collect();

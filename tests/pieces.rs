@@ -45,6 +45,7 @@ fn by_pieces(a: &[u64], b: &[u64], radix: Radix, force: Force, memory: u64) -> (
             store.read(0, &mut v).unwrap();
             v
         }
+        Product::Streamed(_) => panic!("execute_to returned a streamed product"),
     };
     drop(product);
     assert_eq!(

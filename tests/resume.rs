@@ -320,7 +320,7 @@ fn run_tiny(
             store.read(0, &mut v)?;
             Ok(v)
         }
-        Product::Ram(_) => unreachable!(),
+        Product::Ram(_) | Product::Streamed(_) => unreachable!(),
     }
 }
 

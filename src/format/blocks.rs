@@ -35,6 +35,14 @@ pub trait LimbFeed: Sync {
     /// for each limb of the number, windows in any order and from many
     /// threads (for taps and progress).
     fn seen(&self, _first: usize, _limbs: &[u64]) {}
+
+    /// Limbs below `end` are about to be read. A writer in rising order
+    /// ([`write_file_rising`]) calls this before each block, with `end`
+    /// never falling, so that a feed can make its limbs as they are
+    /// needed, from the least significant up.
+    fn prepare(&self, _end: usize) -> io::Result<()> {
+        Ok(())
+    }
 }
 
 /// A [`LimbFeed`] over limbs in memory.
@@ -74,10 +82,14 @@ const TASK_BYTES: usize = BLOCK_BYTES / 8;
 
 /// Where each byte of a number's text lies.
 pub(crate) struct TextShape {
-    /// Sign and the top limb's digits without leading zeros; `0` for zero.
-    head: Vec<u8>,
+    /// The sign goes first.
+    negative: bool,
+    /// Digits of the top limb without leading zeros (1 for zero).
+    top_digits: usize,
     /// Limbs below the top one.
     lower: usize,
+    /// The number is zero (no limbs).
+    zero: bool,
     kind: TextKind,
 }
 
@@ -89,6 +101,20 @@ pub(crate) fn bad_limb(index: usize, value: u64) -> io::Error {
     )
 }
 
+/// The digits of `x` in `kind` without leading zeros (1 for zero), or
+/// `None` when `x` is no limb of that radix.
+pub(crate) fn digits_of_limb(kind: TextKind, x: u64) -> Option<usize> {
+    let mut digits = [0u8; 32];
+    let width = kind.width();
+    put_limb(kind, &mut digits[..width], x).then(|| {
+        width
+            - digits[..width]
+                .iter()
+                .position(|&b| b != b'0')
+                .unwrap_or(width - 1)
+    })
+}
+
 impl TextShape {
     /// The shape of the text of the `len` limbs that `fetch` supplies (top
     /// limb non-zero, or `len == 0` for zero).
@@ -98,37 +124,86 @@ impl TextShape {
         len: usize,
         fetch: Fetch<'_>,
     ) -> io::Result<TextShape> {
-        let width = kind.width();
         if len == 0 {
-            return Ok(TextShape {
-                head: b"0".to_vec(),
-                lower: 0,
-                kind,
-            });
+            return Ok(TextShape::sized(kind, false, 0, 1));
         }
         let mut top = [0u64];
         fetch.read(len - 1, &mut top)?;
-        fetch.seen(len - 1, &top);
-        let mut digits = vec![0u8; width];
-        if !put_limb(kind, &mut digits, top[0]) {
-            return Err(bad_limb(len - 1, top[0]));
+        let digits = digits_of_limb(kind, top[0]).ok_or_else(|| bad_limb(len - 1, top[0]))?;
+        Ok(TextShape::sized(kind, negative, len, digits))
+    }
+
+    /// The shape of the text of `len` limbs whose top limb has
+    /// `top_digits` digits, known before the limbs are: the head is
+    /// formatted when its bytes are, and checked against `top_digits`.
+    pub(crate) fn sized(kind: TextKind, negative: bool, len: usize, top_digits: usize) -> Self {
+        assert!((1..=kind.width()).contains(&top_digits));
+        TextShape {
+            negative: negative && len > 0,
+            top_digits,
+            lower: len.saturating_sub(1),
+            zero: len == 0,
+            kind,
         }
-        let skip = digits.iter().position(|&b| b != b'0').unwrap_or(width - 1);
-        let mut head = Vec::with_capacity(width + 1);
-        if negative {
+    }
+
+    /// Bytes of the sign and the top limb's digits.
+    fn head_len(&self) -> usize {
+        self.negative as usize + self.top_digits
+    }
+
+    /// Limbs the text holds.
+    fn limbs(&self) -> usize {
+        if self.zero {
+            0
+        } else {
+            self.lower + 1
+        }
+    }
+
+    /// One past the highest limb that bytes from `offset` on need.
+    pub(crate) fn limbs_from(&self, offset: u64) -> usize {
+        let head = self.head_len() as u64;
+        if offset < head {
+            return self.limbs();
+        }
+        let k0 = ((offset - head) / self.kind.width() as u64) as usize;
+        self.lower.saturating_sub(k0)
+    }
+
+    /// The head's bytes: the sign and the top limb, read from `fetch` and
+    /// reported seen when `report`.
+    fn head(&self, fetch: Fetch<'_>, report: bool) -> io::Result<Vec<u8>> {
+        if self.zero {
+            return Ok(b"0".to_vec());
+        }
+        let mut top = [0u64];
+        fetch.read(self.lower, &mut top)?;
+        let width = self.kind.width();
+        let mut digits = [0u8; 32];
+        if !put_limb(self.kind, &mut digits[..width], top[0]) {
+            return Err(bad_limb(self.lower, top[0]));
+        }
+        if digits_of_limb(self.kind, top[0]) != Some(self.top_digits) {
+            return Err(io::Error::other(format!(
+                "the top limb ({}) does not have the {} digits its text was laid out for",
+                top[0], self.top_digits
+            )));
+        }
+        if report {
+            fetch.seen(self.lower, &top);
+        }
+        let mut head = Vec::with_capacity(self.head_len());
+        if self.negative {
             head.push(b'-');
         }
-        head.extend_from_slice(&digits[skip..]);
-        Ok(TextShape {
-            head,
-            lower: len - 1,
-            kind,
-        })
+        head.extend_from_slice(&digits[width - self.top_digits..width]);
+        Ok(head)
     }
 
     /// Bytes of the whole text, newline included.
     pub(crate) fn total(&self) -> u64 {
-        (self.head.len() + self.lower * self.kind.width() + 1) as u64
+        (self.head_len() + self.lower * self.kind.width() + 1) as u64
     }
 
     /// Formats bytes `start..start + dst.len()` of the text into `dst`
@@ -143,10 +218,12 @@ impl TextShape {
     ) -> io::Result<()> {
         let end = start + dst.len() as u64;
         debug_assert!(end <= self.total());
-        let head = self.head.len() as u64;
+        let head = self.head_len() as u64;
         if start < head {
+            // The head's limb is reported by the range that holds byte 0.
+            let bytes = self.head(fetch, start == 0)?;
             let e = end.min(head);
-            dst[..(e - start) as usize].copy_from_slice(&self.head[start as usize..e as usize]);
+            dst[..(e - start) as usize].copy_from_slice(&bytes[start as usize..e as usize]);
         }
         let width = self.kind.width();
         let w = width as u64;
@@ -313,24 +390,115 @@ impl BlockWriter<'_> {
 /// thread that mostly waits for the disk; at most [`BLOCK_BUFFERS`] blocks
 /// are held.
 pub(crate) fn write_file(file: &File, shape: &TextShape, fetch: Fetch<'_>) -> io::Result<Written> {
-    write_file_with(file, shape, fetch, true)
+    write_file_with(file, shape, fetch, true, Order::Falling)
 }
 
-/// [`write_file`], trying direct I/O only when `try_direct` is set (the
-/// tests take both paths on any file system).
+/// [`write_file`] from the file's last block to its first, that is from the
+/// least significant limb up, asking `fetch` to
+/// [`prepare`](LimbFeed::prepare) the limbs of each block first: a number
+/// whose limbs are made by a carry pass can be written while it is made,
+/// the disk working while the cores make the next limbs. The text's length
+/// must be known beforehand ([`TextShape::sized`]).
+pub(crate) fn write_file_rising(
+    file: &File,
+    shape: &TextShape,
+    fetch: Fetch<'_>,
+) -> io::Result<Written> {
+    write_file_with(file, shape, fetch, true, Order::Rising)
+}
+
+/// The order a writer takes the file's blocks in.
+#[derive(Clone, Copy, PartialEq)]
+enum Order {
+    /// From the first byte on, the text's own order.
+    Falling,
+    /// From the last block back, each block's limbs prepared first.
+    Rising,
+}
+
+/// The BLAKE3 of a file hashed block by block in any order: each block of
+/// [`BLOCK_BYTES`] (a whole subtree of the hash's tree, as its offset is a
+/// multiple of its power-of-two length) is hashed on its own, and the
+/// chaining values are merged along the tree at the end.
+struct TreeHash {
+    total: u64,
+    cvs: Vec<blake3::hazmat::ChainingValue>,
+    /// The hash itself when the file is a single block (its root).
+    single: Option<blake3::Hash>,
+}
+
+impl TreeHash {
+    fn new(total: u64) -> Self {
+        let blocks = (total as usize).div_ceil(BLOCK_BYTES);
+        TreeHash {
+            total,
+            cvs: vec![[0; 32]; blocks],
+            single: None,
+        }
+    }
+
+    /// Hashes the block at `offset` (the whole block's bytes).
+    fn add(&mut self, offset: u64, bytes: &[u8]) {
+        use blake3::hazmat::HasherExt;
+        debug_assert!(offset.is_multiple_of(BLOCK_BYTES as u64));
+        let mut h = blake3::Hasher::new();
+        if self.total <= BLOCK_BYTES as u64 {
+            self.single = Some(h.update_rayon(bytes).finalize());
+            return;
+        }
+        h.set_input_offset(offset).update_rayon(bytes);
+        self.cvs[offset as usize / BLOCK_BYTES] = h.finalize_non_root();
+    }
+
+    /// The chaining value of the subtree of `len` bytes from block `first`.
+    fn subtree(&self, first: usize, len: u64) -> blake3::hazmat::ChainingValue {
+        use blake3::hazmat::{left_subtree_len, merge_subtrees_non_root, Mode};
+        if len <= BLOCK_BYTES as u64 {
+            return self.cvs[first];
+        }
+        let left = left_subtree_len(len);
+        let right_first = first + (left / BLOCK_BYTES as u64) as usize;
+        merge_subtrees_non_root(
+            &self.subtree(first, left),
+            &self.subtree(right_first, len - left),
+            Mode::Hash,
+        )
+    }
+
+    fn finalize(self) -> blake3::Hash {
+        use blake3::hazmat::{left_subtree_len, merge_subtrees_root, Mode};
+        if let Some(h) = self.single {
+            return h;
+        }
+        // Above one block every split falls on a block boundary: the left
+        // part is a power of two at least a block long.
+        let left = left_subtree_len(self.total);
+        let right_first = (left / BLOCK_BYTES as u64) as usize;
+        merge_subtrees_root(
+            &self.subtree(0, left),
+            &self.subtree(right_first, self.total - left),
+            Mode::Hash,
+        )
+    }
+}
+
+/// [`write_file`] or [`write_file_rising`], trying direct I/O only when
+/// `try_direct` is set (the tests take both paths on any file system).
 fn write_file_with(
     file: &File,
     shape: &TextShape,
     fetch: Fetch<'_>,
     try_direct: bool,
+    order: Order,
 ) -> io::Result<Written> {
     let total = shape.total();
     let direct = try_direct && set_direct(file, true);
     let mut hasher = blake3::Hasher::new();
+    let mut tree = TreeHash::new(total);
     let (to_writer, queued) = mpsc::sync_channel::<(u64, AlignedBlock, usize)>(1);
     let (to_free, free) = mpsc::channel::<AlignedBlock>();
-    let blocks = (total as usize).div_ceil(BLOCK_BYTES).min(BLOCK_BUFFERS);
-    for _ in 0..blocks {
+    let count = (total as usize).div_ceil(BLOCK_BYTES);
+    for _ in 0..count.min(BLOCK_BUFFERS) {
         to_free.send(AlignedBlock::new()).expect("receiver alive");
     }
     let mut writer = BlockWriter { file, direct };
@@ -344,8 +512,15 @@ fn write_file_with(
             Ok(())
         });
         let formatted = (|| -> io::Result<()> {
-            let mut offset = 0u64;
-            while offset < total {
+            for i in 0..count {
+                let i = match order {
+                    Order::Falling => i,
+                    Order::Rising => count - 1 - i,
+                };
+                let offset = (i * BLOCK_BYTES) as u64;
+                if order == Order::Rising {
+                    fetch.prepare(shape.limbs_from(offset))?;
+                }
                 let Ok(mut block) = free.recv() else {
                     return Ok(()); // the writer stopped; its error is reported
                 };
@@ -356,11 +531,15 @@ fn write_file_with(
                 let bytes = block.bytes();
                 shape.fill_parallel(offset, &mut bytes[..n], fetch)?;
                 bytes[n..padded].fill(0);
-                hasher.update_rayon(&bytes[..n]);
+                match order {
+                    Order::Falling => {
+                        hasher.update_rayon(&bytes[..n]);
+                    }
+                    Order::Rising => tree.add(offset, &bytes[..n]),
+                }
                 if to_writer.send((offset, block, padded)).is_err() {
                     return Ok(());
                 }
-                offset += n as u64;
             }
             Ok(())
         })();
@@ -378,7 +557,10 @@ fn write_file_with(
     }
     Ok(Written {
         bytes: total,
-        blake3: hasher.finalize(),
+        blake3: match order {
+            Order::Falling => hasher.finalize(),
+            Order::Rising => tree.finalize(),
+        },
     })
 }
 
@@ -411,15 +593,24 @@ mod tests {
     }
 
     /// A feed that counts how often each limb is reported seen.
+    /// It also checks, when `rising`, that every read lies below the end
+    /// last prepared and that the ends never fall.
     struct Counted<'a> {
         limbs: &'a [u64],
         seen: Vec<std::sync::atomic::AtomicU32>,
+        rising: bool,
+        prepared: std::sync::atomic::AtomicUsize,
     }
 
     impl<'a> Counted<'a> {
-        fn new(limbs: &'a [u64]) -> Self {
+        fn with_order(limbs: &'a [u64], rising: bool) -> Self {
             let seen = limbs.iter().map(|_| Default::default()).collect();
-            Counted { limbs, seen }
+            Counted {
+                limbs,
+                seen,
+                rising,
+                prepared: Default::default(),
+            }
         }
 
         fn assert_each_seen_once(&self) {
@@ -431,7 +622,24 @@ mod tests {
 
     impl LimbFeed for Counted<'_> {
         fn read(&self, first: usize, out: &mut [u64]) -> io::Result<()> {
+            if self.rising {
+                let end = self.prepared.load(std::sync::atomic::Ordering::Relaxed);
+                assert!(
+                    first + out.len() <= end,
+                    "read {first}+{} past {end}",
+                    out.len()
+                );
+            }
             out.copy_from_slice(&self.limbs[first..first + out.len()]);
+            Ok(())
+        }
+
+        fn prepare(&self, end: usize) -> io::Result<()> {
+            assert!(end <= self.limbs.len());
+            let before = self
+                .prepared
+                .swap(end, std::sync::atomic::Ordering::Relaxed);
+            assert!(before <= end, "prepared {end} after {before}");
             Ok(())
         }
 
@@ -500,23 +708,37 @@ mod tests {
             257,
             BLOCK_BYTES / 16 - 1,
             BLOCK_BYTES / 16 + 1,
+            2 * BLOCK_BYTES / 16 - 1,
+            2 * BLOCK_BYTES / 16,
             3 * BLOCK_BYTES / 16 + 300,
             5 * BLOCK_BYTES / 16,
         ];
         for len in lens {
             let limbs = limbs_of(len, u64::MAX, len as u64);
             let text = naive(len > 0, &limbs, 16);
-            for direct in [true, false] {
-                let fetch = Counted::new(&limbs);
-                let shape = TextShape::new(TextKind::Hex, true, len, &fetch).unwrap();
+            let orders = [(true, Order::Falling), (false, Order::Falling)]
+                .into_iter()
+                .chain([(true, Order::Rising), (false, Order::Rising)]);
+            for (direct, order) in orders {
+                let rising = order == Order::Rising;
+                let fetch = Counted::with_order(&limbs, rising);
+                let shape = if rising {
+                    // the length known beforehand, as a carry pass knows it
+                    let digits = limbs
+                        .last()
+                        .map_or(1, |&t| digits_of_limb(TextKind::Hex, t).unwrap());
+                    TextShape::sized(TextKind::Hex, true, len, digits)
+                } else {
+                    TextShape::new(TextKind::Hex, true, len, &fetch).unwrap()
+                };
                 let path = dir.path().join("t.txt");
                 let file = File::create(&path).unwrap();
-                let w = write_file_with(&file, &shape, &fetch, direct).unwrap();
+                let w = write_file_with(&file, &shape, &fetch, direct, order).unwrap();
                 drop(file);
                 let got = std::fs::read(&path).unwrap();
                 assert!(
                     got == text,
-                    "len {len} direct {direct}: {} bytes against {}",
+                    "len {len} direct {direct} rising {rising}: {} bytes against {}",
                     got.len(),
                     text.len()
                 );
@@ -552,17 +774,56 @@ mod tests {
         let err = write_file(&file, &shape, &fetch).unwrap_err();
         assert!(err.to_string().contains("limb 1000 "), "{err}");
 
-        struct Failing(usize);
-        impl LimbFeed for Failing {
-            fn read(&self, first: usize, _: &mut [u64]) -> io::Result<()> {
+        struct Failing<'a>(usize, &'a [u64]);
+        impl LimbFeed for Failing<'_> {
+            fn read(&self, first: usize, out: &mut [u64]) -> io::Result<()> {
                 if first < self.0 {
                     Err(io::Error::other("read failed"))
                 } else {
+                    out.copy_from_slice(&self.1[first..first + out.len()]);
                     Ok(())
                 }
             }
         }
-        let err = write_file(&file, &shape, &Failing(len / 2)).unwrap_err();
+        let err = write_file(&file, &shape, &Failing(len / 2, &limbs)).unwrap_err();
         assert_eq!(err.to_string(), "read failed");
+        let err = write_file_rising(&file, &shape, &Failing(len / 2, &limbs)).unwrap_err();
+        assert_eq!(err.to_string(), "read failed");
+        // A top limb other than the one the text was laid out for.
+        let short = TextShape::sized(TextKind::Decimal, false, len, 1);
+        let mut fixed = limbs.clone();
+        fixed[1000] = 0;
+        fixed[len - 1] = 123;
+        let err = write_file_rising(&file, &short, &Failing(0, &fixed)).unwrap_err();
+        assert!(
+            err.to_string().contains("(123) does not have the 1 digits"),
+            "{err}"
+        );
+    }
+
+    /// Blocks hashed out of order merge to the file's BLAKE3: one block or
+    /// less, whole blocks, a short last block, powers of two and not.
+    #[test]
+    fn tree_hash_matches_the_whole_hash() {
+        let b = BLOCK_BYTES;
+        for total in [
+            1,
+            1024,
+            b - 1,
+            b,
+            b + 1,
+            2 * b,
+            3 * b - 5,
+            4 * b,
+            4 * b + 1,
+            7 * b + 999,
+        ] {
+            let data: Vec<u8> = (0..total).map(|i| (i * 7 + i / 1000) as u8).collect();
+            let mut tree = TreeHash::new(total as u64);
+            for (i, block) in data.chunks(b).enumerate().rev() {
+                tree.add((i * b) as u64, block);
+            }
+            assert_eq!(tree.finalize(), blake3::hash(&data), "total {total}");
+        }
     }
 }

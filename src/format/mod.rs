@@ -46,6 +46,7 @@ use crate::radix::{DEC_DIGITS_PER_LIMB, HEX_DIGITS_PER_LIMB};
 use crate::{Error, Radix, Result};
 use text::TextKind;
 
+pub(crate) use blocks::digits_of_limb;
 pub use blocks::{LimbFeed, Written};
 
 /// Drops the pages of bytes `offset..offset + len` of a mapped file from
@@ -609,7 +610,7 @@ pub fn write_operand<W: Write>(
 }
 
 /// The digit set of a text format.
-fn text_kind(format: Format) -> Option<TextKind> {
+pub(crate) fn text_kind(format: Format) -> Option<TextKind> {
     match format {
         Format::Decimal => Some(TextKind::Decimal),
         Format::Hex => Some(TextKind::Hex),
@@ -702,6 +703,33 @@ pub fn write_text_file_from(
             io::ErrorKind::Unsupported,
             "a product computed out of core is written as decimal or hexadecimal text; \
              use --out-format dec or hex",
+        )),
+    }
+}
+
+/// Writes a number's text into a file from its least significant limb up,
+/// asking `fetch` to [`prepare`](LimbFeed::prepare) each block's limbs
+/// before reading them: for a product made by a carry pass while it is
+/// written. The text's length must be known: `len` significant limbs, the
+/// top one with `top_digits` digits (checked when it is written).
+/// Decimal and hexadecimal text only.
+pub fn write_text_file_rising(
+    file: &File,
+    format: Format,
+    radix: Radix,
+    negative: bool,
+    (len, top_digits): (usize, usize),
+    fetch: &dyn LimbFeed,
+) -> io::Result<Written> {
+    checked_for_writing(format, radix, negative, &[])?;
+    match text_kind(format) {
+        Some(kind) => {
+            let shape = blocks::TextShape::sized(kind, negative, len, top_digits);
+            blocks::write_file_rising(file, &shape, fetch)
+        }
+        None => Err(io::Error::new(
+            io::ErrorKind::Unsupported,
+            "only decimal and hexadecimal text is written from the least significant limb up",
         )),
     }
 }
