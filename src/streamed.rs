@@ -259,7 +259,7 @@ impl StreamedProduct {
 fn internal(what: &str) -> Error {
     Error::verify(
         format!("internal check: {what}"),
-        "please report it; rerunning with --threads 1 may avoid it",
+        "this is a flaw in vastmul, not in the operands: please report it with their sizes",
     )
 }
 
