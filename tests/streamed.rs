@@ -95,14 +95,6 @@ fn check(a: &[u64], b: &[u64], radix: Radix, negative: (bool, bool), streamed: b
     assert_eq!(report.streamed, streamed, "{what}: streamed");
 }
 
-fn random(len: usize, radix: Radix, rng: &mut Rng) -> Vec<u64> {
-    let mut v: Vec<u64> = (0..len).map(|_| rng.below(radix.max_limb())).collect();
-    if let Some(top) = v.last_mut() {
-        *top = (*top).max(1);
-    }
-    v
-}
-
 #[test]
 fn random_products_match_the_reference() {
     let mut rng = Rng::new(41);
@@ -119,8 +111,8 @@ fn random_products_match_the_reference() {
             (150_000, 3),
         ] {
             for negative in [(false, false), (true, false)] {
-                let a = random(la, radix, &mut rng);
-                let b = random(lb, radix, &mut rng);
+                let a = rng.limbs(la, radix);
+                let b = rng.limbs(lb, radix);
                 let streamed = la + lb > 128;
                 let what = format!("{radix:?} {la}x{lb} {negative:?}");
                 check(&a, &b, radix, negative, streamed, &what);
@@ -166,7 +158,7 @@ fn products_next_to_radix_powers_match_the_reference() {
             );
             // Maximal limbs below a top limb that cannot overflow: streamed.
             let mut r = Rng::new(k as u64);
-            let b = random(k, radix, &mut r);
+            let b = r.limbs(k, radix);
             check(
                 &max,
                 &b,

@@ -106,13 +106,14 @@ pub(crate) fn bad_limb(index: usize, value: u64) -> io::Error {
 pub(crate) fn digits_of_limb(kind: TextKind, x: u64) -> Option<usize> {
     let mut digits = [0u8; 32];
     let width = kind.width();
-    put_limb(kind, &mut digits[..width], x).then(|| {
-        width
-            - digits[..width]
-                .iter()
-                .position(|&b| b != b'0')
-                .unwrap_or(width - 1)
-    })
+    put_limb(kind, &mut digits[..width], x).then(|| significant(&digits[..width]))
+}
+
+/// Digits of a limb's fixed-width text without its leading zeros (1 for
+/// zero).
+fn significant(digits: &[u8]) -> usize {
+    let width = digits.len();
+    width - digits.iter().position(|&b| b != b'0').unwrap_or(width - 1)
 }
 
 impl TextShape {
@@ -184,7 +185,7 @@ impl TextShape {
         if !put_limb(self.kind, &mut digits[..width], top[0]) {
             return Err(bad_limb(self.lower, top[0]));
         }
-        if digits_of_limb(self.kind, top[0]) != Some(self.top_digits) {
+        if significant(&digits[..width]) != self.top_digits {
             return Err(io::Error::other(format!(
                 "the top limb ({}) does not have the {} digits its text was laid out for",
                 top[0], self.top_digits
@@ -416,6 +417,13 @@ enum Order {
     Rising,
 }
 
+/// How a writer hashes what it writes: in the file's order, or block by
+/// block in any order.
+enum Hashing {
+    InOrder(Box<blake3::Hasher>),
+    Tree(TreeHash),
+}
+
 /// The BLAKE3 of a file hashed block by block in any order: each block of
 /// [`BLOCK_BYTES`] (a whole subtree of the hash's tree, as its offset is a
 /// multiple of its power-of-two length) is hashed on its own, and the
@@ -493,8 +501,10 @@ fn write_file_with(
 ) -> io::Result<Written> {
     let total = shape.total();
     let direct = try_direct && set_direct(file, true);
-    let mut hasher = blake3::Hasher::new();
-    let mut tree = TreeHash::new(total);
+    let mut hashing = match order {
+        Order::Falling => Hashing::InOrder(Box::default()),
+        Order::Rising => Hashing::Tree(TreeHash::new(total)),
+    };
     let (to_writer, queued) = mpsc::sync_channel::<(u64, AlignedBlock, usize)>(1);
     let (to_free, free) = mpsc::channel::<AlignedBlock>();
     let count = (total as usize).div_ceil(BLOCK_BYTES);
@@ -531,11 +541,11 @@ fn write_file_with(
                 let bytes = block.bytes();
                 shape.fill_parallel(offset, &mut bytes[..n], fetch)?;
                 bytes[n..padded].fill(0);
-                match order {
-                    Order::Falling => {
-                        hasher.update_rayon(&bytes[..n]);
+                match &mut hashing {
+                    Hashing::InOrder(h) => {
+                        h.update_rayon(&bytes[..n]);
                     }
-                    Order::Rising => tree.add(offset, &bytes[..n]),
+                    Hashing::Tree(t) => t.add(offset, &bytes[..n]),
                 }
                 if to_writer.send((offset, block, padded)).is_err() {
                     return Ok(());
@@ -557,9 +567,9 @@ fn write_file_with(
     }
     Ok(Written {
         bytes: total,
-        blake3: match order {
-            Order::Falling => hasher.finalize(),
-            Order::Rising => tree.finalize(),
+        blake3: match hashing {
+            Hashing::InOrder(h) => h.finalize(),
+            Hashing::Tree(t) => t.finalize(),
         },
     })
 }
