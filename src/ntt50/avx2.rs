@@ -303,6 +303,75 @@ fn store_part(s: &mut [u64], v: D, k: Consts) {
     unsafe { _mm256_maskstore_epi64(s.as_mut_ptr().cast(), mask, to_u64(v, k)) }
 }
 
+/// Four slots as doubles: words when `WORDS`, else the bits of doubles an
+/// earlier stage of the same transform stored there.
+#[inline]
+#[target_feature(enable = "avx2,fma")]
+fn load_in<const WORDS: bool>(s: &[u64; W], k: Consts) -> D {
+    if WORDS {
+        load(s, k)
+    } else {
+        // SAFETY: `s` is W initialised words, read as the doubles whose
+        // bits they hold; the load is unaligned.
+        unsafe { _mm256_loadu_pd(s.as_ptr().cast()) }
+    }
+}
+
+/// Four doubles into slots: as words when `WORDS`, else as their bits, for
+/// a later stage's [`load_in`].
+#[inline]
+#[target_feature(enable = "avx2,fma")]
+fn store_out<const WORDS: bool>(s: &mut [u64; W], v: D, k: Consts) {
+    if WORDS {
+        store(s, v, k)
+    } else {
+        // SAFETY: `s` is W writable words; the store is unaligned.
+        unsafe { _mm256_storeu_pd(s.as_mut_ptr().cast(), v) }
+    }
+}
+
+/// [`load_in`] of the first `min(len, 4)` slots, zeros elsewhere.
+#[inline]
+#[target_feature(enable = "avx2,fma")]
+fn load_part_in<const WORDS: bool>(s: &[u64], k: Consts) -> D {
+    if WORDS {
+        load_part(s, k)
+    } else {
+        let mask = part_mask(s.len());
+        // SAFETY: the mask enables only lanes below `s.len()`; masked-off
+        // lanes are neither read nor able to fault.
+        unsafe { _mm256_maskload_pd(s.as_ptr().cast(), mask) }
+    }
+}
+
+/// [`store_out`] of the first `min(len, 4)` lanes.
+#[inline]
+#[target_feature(enable = "avx2,fma")]
+fn store_part_out<const WORDS: bool>(s: &mut [u64], v: D, k: Consts) {
+    if WORDS {
+        store_part(s, v, k)
+    } else {
+        let mask = part_mask(s.len());
+        // SAFETY: the mask enables only lanes below `s.len()`; masked-off
+        // lanes are neither written nor able to fault.
+        unsafe { _mm256_maskstore_pd(s.as_mut_ptr().cast(), mask, v) }
+    }
+}
+
+/// Calls a stage with its direction and the forms it reads and writes,
+/// chosen at run time among the four compiled loops: words in for the
+/// transform's first stage, words out for its last, doubles between.
+macro_rules! staged {
+    ($f:ident::<$dir:ident>($($arg:expr),*), $words_in:expr, $words_out:expr) => {
+        match ($words_in, $words_out) {
+            (true, true) => $f::<$dir, true, true>($($arg),*),
+            (true, false) => $f::<$dir, true, false>($($arg),*),
+            (false, true) => $f::<$dir, false, true>($($arg),*),
+            (false, false) => $f::<$dir, false, false>($($arg),*),
+        }
+    };
+}
+
 /// `x * w mod p` in `(0, 2p)` for an integer `|x| < 2^51` (module notes).
 #[inline]
 #[target_feature(enable = "avx2,fma")]
@@ -415,38 +484,53 @@ fn step4<const FWD: bool>(v: [D; 4], t: [Tw; 3], k: Consts) -> [D; 4] {
 /// A radix-4 step of a single vector, `q >= 4`: consecutive butterflies
 /// take consecutive twiddles.
 #[target_feature(enable = "avx2,fma")]
-fn radix4_single<const FWD: bool>(a: &mut [u64], q: usize, t: &Table, k: Consts) {
+fn radix4_single<const FWD: bool, const IN_WORDS: bool, const OUT_WORDS: bool>(
+    a: &mut [u64],
+    q: usize,
+    t: &Table,
+    k: Consts,
+) {
     let runs = radix4_entries(FWD, q, 0).map(|i| Run::new(t, i, q));
     for block in a.chunks_exact_mut(4 * q) {
         let [b0, b1, b2, b3] = quarters(block, q).map(vectors_mut);
         for j in 0..b0.len() {
             let tws = runs.map(|r| load_tw(&r, j));
             let v = [
-                load(&b0[j], k),
-                load(&b1[j], k),
-                load(&b2[j], k),
-                load(&b3[j], k),
+                load_in::<IN_WORDS>(&b0[j], k),
+                load_in::<IN_WORDS>(&b1[j], k),
+                load_in::<IN_WORDS>(&b2[j], k),
+                load_in::<IN_WORDS>(&b3[j], k),
             ];
             let [v0, v1, v2, v3] = step4::<FWD>(v, tws, k);
-            store(&mut b0[j], v0, k);
-            store(&mut b1[j], v1, k);
-            store(&mut b2[j], v2, k);
-            store(&mut b3[j], v3, k);
+            store_out::<OUT_WORDS>(&mut b0[j], v0, k);
+            store_out::<OUT_WORDS>(&mut b1[j], v1, k);
+            store_out::<OUT_WORDS>(&mut b2[j], v2, k);
+            store_out::<OUT_WORDS>(&mut b3[j], v3, k);
         }
     }
 }
 
 /// A radix-2 stage of a single vector with halves `half >= 4` apart.
 #[target_feature(enable = "avx2,fma")]
-fn radix2_single<const FWD: bool>(a: &mut [u64], half: usize, t: &Table, k: Consts) {
+fn radix2_single<const FWD: bool, const IN_WORDS: bool, const OUT_WORDS: bool>(
+    a: &mut [u64],
+    half: usize,
+    t: &Table,
+    k: Consts,
+) {
     let run = Run::new(t, half, half);
     for block in a.chunks_exact_mut(2 * half) {
         let (lo, hi) = block.split_at_mut(half);
         let (lo, hi) = (vectors_mut(lo), vectors_mut(hi));
         for j in 0..lo.len() {
-            let (x, y) = step2::<FWD>(load(&lo[j], k), load(&hi[j], k), load_tw(&run, j), k);
-            store(&mut lo[j], x, k);
-            store(&mut hi[j], y, k);
+            let (x, y) = step2::<FWD>(
+                load_in::<IN_WORDS>(&lo[j], k),
+                load_in::<IN_WORDS>(&hi[j], k),
+                load_tw(&run, j),
+                k,
+            );
+            store_out::<OUT_WORDS>(&mut lo[j], x, k);
+            store_out::<OUT_WORDS>(&mut hi[j], y, k);
         }
     }
 }
@@ -471,16 +555,20 @@ fn transpose(r: [D; 4]) -> [D; 4] {
 /// The stages 2 and 1 of every 4-element block, on transposed 4x4 tiles,
 /// in the order the direction runs them.
 #[target_feature(enable = "avx2,fma")]
-fn tiles<const FWD: bool>(a: &mut [u64], t: &Table, k: Consts) {
+fn tiles<const FWD: bool, const IN_WORDS: bool, const OUT_WORDS: bool>(
+    a: &mut [u64],
+    t: &Table,
+    k: Consts,
+) {
     let (t1, t2, t3) = (splat_tw(t.get(1)), splat_tw(t.get(2)), splat_tw(t.get(3)));
     for tile in vectors_mut(a).as_chunks_mut::<W>().0 {
-        let [c0, c1, c2, c3] = transpose([0, 1, 2, 3].map(|i| load(&tile[i], k)));
+        let [c0, c1, c2, c3] = transpose([0, 1, 2, 3].map(|i| load_in::<IN_WORDS>(&tile[i], k)));
         // forward: columns c and c + 2 with twiddles 2 + c, then c and c + 1
         let tws = if FWD { [t2, t3, t1] } else { [t1, t2, t3] };
         let [c0, c1, c2, c3] = step4::<FWD>([c0, c1, c2, c3], tws, k);
         let rows = transpose([c0, c1, c2, c3]);
         for (row, r) in tile.iter_mut().zip(rows) {
-            store(row, r, k);
+            store_out::<OUT_WORDS>(row, r, k);
         }
     }
 }
@@ -492,18 +580,22 @@ fn forward_single(a: &mut [u64], tw: &Twiddles) {
         return scalar::forward(a, tw);
     }
     let (k, t) = (consts(tw.modulus()), &tw.fwd);
-    // stages n/2 .. 4 in vectors of consecutive butterflies
+    // Stages n/2 .. 4 in vectors of consecutive butterflies, then the
+    // tiles; n >= 16 makes at least one radix-4 step come before them.
     let mut half = n / 2;
+    let mut first = true;
     if n.trailing_zeros() % 2 == 1 {
         // an odd count of them (log2 n - 2): one radix-2 stage first
-        radix2_single::<FORWARD>(a, half, t, k);
+        staged!(radix2_single::<FORWARD>(a, half, t, k), true, false);
         half /= 2;
+        first = false;
     }
     while half >= 2 * W {
-        radix4_single::<FORWARD>(a, half / 2, t, k);
+        staged!(radix4_single::<FORWARD>(a, half / 2, t, k), first, false);
         half /= 4;
+        first = false;
     }
-    tiles::<FORWARD>(a, t, k);
+    staged!(tiles::<FORWARD>(a, t, k), first, true);
 }
 
 #[target_feature(enable = "avx2,fma")]
@@ -513,70 +605,99 @@ fn inverse_single(a: &mut [u64], tw: &Twiddles) {
         return scalar::inverse(a, tw);
     }
     let (k, t) = (consts(tw.modulus()), &tw.inv);
-    tiles::<INVERSE>(a, t, k);
+    // A radix-2 stage ends the transform when log2 n is odd; else the
+    // last radix-4 step does (n >= 16 makes at least one follow the tiles).
+    let ends_radix2 = n.trailing_zeros() % 2 == 1;
+    staged!(tiles::<INVERSE>(a, t, k), true, false);
     let mut q = W;
     while 2 * q <= n / 2 {
-        radix4_single::<INVERSE>(a, q, t, k);
+        let last = !ends_radix2 && 8 * q > n / 2;
+        staged!(radix4_single::<INVERSE>(a, q, t, k), false, last);
         q *= 4;
     }
     if q == n / 2 {
-        radix2_single::<INVERSE>(a, q, t, k);
+        staged!(radix2_single::<INVERSE>(a, q, t, k), false, true);
     }
 }
 
 /// Four rows of lanes through one radix-4 step with broadcast twiddles,
 /// four lanes at a time, the last group masked.
 #[target_feature(enable = "avx2,fma")]
-fn radix4_row<const FWD: bool>(rows: [&mut [u64]; 4], tws: [Tw; 3], k: Consts) {
+fn radix4_row<const FWD: bool, const IN_WORDS: bool, const OUT_WORDS: bool>(
+    rows: [&mut [u64]; 4],
+    tws: [Tw; 3],
+    k: Consts,
+) {
     let [(x0, r0), (x1, r1), (x2, r2), (x3, r3)] = rows.map(|r| r.as_chunks_mut::<W>());
     for j in 0..x0.len() {
         let v = [
-            load(&x0[j], k),
-            load(&x1[j], k),
-            load(&x2[j], k),
-            load(&x3[j], k),
+            load_in::<IN_WORDS>(&x0[j], k),
+            load_in::<IN_WORDS>(&x1[j], k),
+            load_in::<IN_WORDS>(&x2[j], k),
+            load_in::<IN_WORDS>(&x3[j], k),
         ];
         let [v0, v1, v2, v3] = step4::<FWD>(v, tws, k);
-        store(&mut x0[j], v0, k);
-        store(&mut x1[j], v1, k);
-        store(&mut x2[j], v2, k);
-        store(&mut x3[j], v3, k);
+        store_out::<OUT_WORDS>(&mut x0[j], v0, k);
+        store_out::<OUT_WORDS>(&mut x1[j], v1, k);
+        store_out::<OUT_WORDS>(&mut x2[j], v2, k);
+        store_out::<OUT_WORDS>(&mut x3[j], v3, k);
     }
     if !r0.is_empty() {
         let (x0, x1, x2, x3) = (r0, r1, r2, r3);
         let v = [
-            load_part(x0, k),
-            load_part(x1, k),
-            load_part(x2, k),
-            load_part(x3, k),
+            load_part_in::<IN_WORDS>(x0, k),
+            load_part_in::<IN_WORDS>(x1, k),
+            load_part_in::<IN_WORDS>(x2, k),
+            load_part_in::<IN_WORDS>(x3, k),
         ];
         let [v0, v1, v2, v3] = step4::<FWD>(v, tws, k);
-        store_part(x0, v0, k);
-        store_part(x1, v1, k);
-        store_part(x2, v2, k);
-        store_part(x3, v3, k);
+        store_part_out::<OUT_WORDS>(x0, v0, k);
+        store_part_out::<OUT_WORDS>(x1, v1, k);
+        store_part_out::<OUT_WORDS>(x2, v2, k);
+        store_part_out::<OUT_WORDS>(x3, v3, k);
     }
 }
 
 /// Two rows of lanes through one radix-2 butterfly with a broadcast
 /// twiddle, the last group masked.
 #[target_feature(enable = "avx2,fma")]
-fn radix2_row<const FWD: bool>(xs: &mut [u64], ys: &mut [u64], t: Tw, k: Consts) {
+fn radix2_row<const FWD: bool, const IN_WORDS: bool, const OUT_WORDS: bool>(
+    xs: &mut [u64],
+    ys: &mut [u64],
+    t: Tw,
+    k: Consts,
+) {
     let ((xv, xs), (yv, ys)) = (xs.as_chunks_mut::<W>(), ys.as_chunks_mut::<W>());
     for j in 0..xv.len() {
-        let (x, y) = step2::<FWD>(load(&xv[j], k), load(&yv[j], k), t, k);
-        store(&mut xv[j], x, k);
-        store(&mut yv[j], y, k);
+        let (x, y) = step2::<FWD>(
+            load_in::<IN_WORDS>(&xv[j], k),
+            load_in::<IN_WORDS>(&yv[j], k),
+            t,
+            k,
+        );
+        store_out::<OUT_WORDS>(&mut xv[j], x, k);
+        store_out::<OUT_WORDS>(&mut yv[j], y, k);
     }
     if !xs.is_empty() {
-        let (x, y) = step2::<FWD>(load_part(xs, k), load_part(ys, k), t, k);
-        store_part(xs, x, k);
-        store_part(ys, y, k);
+        let (x, y) = step2::<FWD>(
+            load_part_in::<IN_WORDS>(xs, k),
+            load_part_in::<IN_WORDS>(ys, k),
+            t,
+            k,
+        );
+        store_part_out::<OUT_WORDS>(xs, x, k);
+        store_part_out::<OUT_WORDS>(ys, y, k);
     }
 }
 
 #[target_feature(enable = "avx2,fma")]
-fn radix4_lanes<const FWD: bool>(a: &mut [u64], lanes: usize, q: usize, t: &Table, k: Consts) {
+fn radix4_lanes<const FWD: bool, const IN_WORDS: bool, const OUT_WORDS: bool>(
+    a: &mut [u64],
+    lanes: usize,
+    q: usize,
+    t: &Table,
+    k: Consts,
+) {
     for block in a.chunks_exact_mut(4 * q * lanes) {
         let [b0, b1, b2, b3] = quarters(block, q * lanes);
         for j in 0..q {
@@ -588,13 +709,19 @@ fn radix4_lanes<const FWD: bool>(a: &mut [u64], lanes: usize, q: usize, t: &Tabl
                 &mut b2[r.clone()],
                 &mut b3[r],
             ];
-            radix4_row::<FWD>(rows, tws, k);
+            radix4_row::<FWD, IN_WORDS, OUT_WORDS>(rows, tws, k);
         }
     }
 }
 
 #[target_feature(enable = "avx2,fma")]
-fn radix2_lanes<const FWD: bool>(a: &mut [u64], lanes: usize, half: usize, t: &Table, k: Consts) {
+fn radix2_lanes<const FWD: bool, const IN_WORDS: bool, const OUT_WORDS: bool>(
+    a: &mut [u64],
+    lanes: usize,
+    half: usize,
+    t: &Table,
+    k: Consts,
+) {
     for block in a.chunks_exact_mut(2 * half * lanes) {
         let (lo, hi) = block.split_at_mut(half * lanes);
         for (j, (xs, ys)) in lo
@@ -602,7 +729,7 @@ fn radix2_lanes<const FWD: bool>(a: &mut [u64], lanes: usize, half: usize, t: &T
             .zip(hi.chunks_exact_mut(lanes))
             .enumerate()
         {
-            radix2_row::<FWD>(xs, ys, splat_tw(t.get(half + j)), k);
+            radix2_row::<FWD, IN_WORDS, OUT_WORDS>(xs, ys, splat_tw(t.get(half + j)), k);
         }
     }
 }
@@ -614,13 +741,22 @@ fn forward_interleaved(a: &mut [u64], lanes: usize, tw: &Twiddles) {
     }
     let (k, t, n) = (consts(tw.modulus()), &tw.fwd, tw.len());
     let mut half = n / 2;
+    let mut first = true;
     if n.trailing_zeros() % 2 == 1 {
-        radix2_lanes::<FORWARD>(a, lanes, half, t, k);
+        // the only stage when n = 2
+        staged!(radix2_lanes::<FORWARD>(a, lanes, half, t, k), true, n == 2);
         half /= 2;
+        first = false;
     }
     while half >= 2 {
-        radix4_lanes::<FORWARD>(a, lanes, half / 2, t, k);
+        let last = half < 8;
+        staged!(
+            radix4_lanes::<FORWARD>(a, lanes, half / 2, t, k),
+            first,
+            last
+        );
         half /= 4;
+        first = false;
     }
 }
 
@@ -630,13 +766,15 @@ fn inverse_interleaved(a: &mut [u64], lanes: usize, tw: &Twiddles) {
         return inverse_single(a, tw);
     }
     let (k, t, n) = (consts(tw.modulus()), &tw.inv, tw.len());
+    let ends_radix2 = n.trailing_zeros() % 2 == 1;
     let mut q = 1;
     while 4 * q <= n {
-        radix4_lanes::<INVERSE>(a, lanes, q, t, k);
+        let last = !ends_radix2 && 16 * q > n;
+        staged!(radix4_lanes::<INVERSE>(a, lanes, q, t, k), q == 1, last);
         q *= 4;
     }
     if q < n {
-        radix2_lanes::<INVERSE>(a, lanes, q, t, k);
+        staged!(radix2_lanes::<INVERSE>(a, lanes, q, t, k), q == 1, true);
     }
 }
 
