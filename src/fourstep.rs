@@ -294,19 +294,10 @@ impl PrimeArith {
                 twiddle(&mut buf.a, &buf.tw, m);
             }
             PrimeArith::Narrow(t) => {
-                let (k, m) = (t.kernel, &t.modulus);
-                k.twiddle_powers(&mut buf.a, t.row_step_fwd[i], m);
-                k.forward(&mut buf.a, &t.row);
-                if with_b {
-                    k.twiddle_powers(&mut buf.b, t.row_step_fwd[i], m);
-                    k.forward(&mut buf.b, &t.row);
-                } else {
-                    buf.b.copy_from_slice(&buf.a);
-                }
                 // The CRT divides out the transform length.
-                k.pointwise(&mut buf.a, &buf.b, 1, m);
-                k.inverse(&mut buf.a, &t.row);
-                k.twiddle_powers(&mut buf.a, t.row_step_inv[i], m);
+                let steps = (t.row_step_fwd[i], t.row_step_inv[i]);
+                t.kernel
+                    .row_product(&mut buf.a, &mut buf.b, with_b, steps, &t.row);
             }
         }
     }

@@ -35,7 +35,7 @@ type D = __m256d;
 const W: usize = 4;
 
 /// The shortest single vector the vector code takes: one 4x4 tile.
-const MIN_VECTOR_LEN: usize = W * W;
+pub(crate) const MIN_VECTOR_LEN: usize = W * W;
 
 /// 2^52: adding it to an integer below 2^52 puts the integer in the
 /// mantissa bits.
@@ -153,6 +153,29 @@ pub fn twiddle_powers(row: &mut [u64], step: u64, m: &Modulus50) {
     // SAFETY: `require` checked that the CPU has every feature the callee
     // is compiled for.
     unsafe { twiddle_all(row, step, m) }
+}
+
+/// [`super::Kernel::row_product`] on one row of a power-of-two length of
+/// at least 16, in doubles from the first twiddle to the last: words are
+/// converted only as the rows come in and as the result goes out. Panics
+/// if the CPU lacks AVX2 or FMA, or the row does not fit the table.
+pub(crate) fn row_product(
+    a: &mut [u64],
+    b: &mut [u64],
+    with_b: bool,
+    (step_fwd, step_inv): (u64, u64),
+    tw: &Twiddles,
+) {
+    check_shape(a, 1, tw);
+    check_shape(b, 1, tw);
+    assert!(
+        tw.three.is_none() && tw.len() >= MIN_VECTOR_LEN,
+        "row not fused"
+    );
+    require(Kernel::Avx2);
+    // SAFETY: `require` checked that the CPU has every feature the callee
+    // is compiled for.
+    unsafe { row_product_doubles(a, b, with_b, (step_fwd, step_inv), tw) }
 }
 
 /// The modulus' constants, broadcast.
@@ -575,8 +598,17 @@ fn tiles<const FWD: bool, const IN_WORDS: bool, const OUT_WORDS: bool>(
 
 #[target_feature(enable = "avx2,fma")]
 fn forward_single(a: &mut [u64], tw: &Twiddles) {
+    forward_forms(a, tw, true, true)
+}
+
+/// [`forward_single`], reading words or doubles and writing words or
+/// doubles as `words_in` and `words_out` say. Lengths below
+/// [`MIN_VECTOR_LEN`] take the scalar path and words only.
+#[target_feature(enable = "avx2,fma")]
+fn forward_forms(a: &mut [u64], tw: &Twiddles, words_in: bool, words_out: bool) {
     let n = tw.len();
     if n < MIN_VECTOR_LEN {
+        assert!(words_in && words_out, "short transforms take words");
         return scalar::forward(a, tw);
     }
     let (k, t) = (consts(tw.modulus()), &tw.fwd);
@@ -586,37 +618,49 @@ fn forward_single(a: &mut [u64], tw: &Twiddles) {
     let mut first = true;
     if n.trailing_zeros() % 2 == 1 {
         // an odd count of them (log2 n - 2): one radix-2 stage first
-        staged!(radix2_single::<FORWARD>(a, half, t, k), true, false);
+        staged!(radix2_single::<FORWARD>(a, half, t, k), words_in, false);
         half /= 2;
         first = false;
     }
     while half >= 2 * W {
-        staged!(radix4_single::<FORWARD>(a, half / 2, t, k), first, false);
+        let words = first && words_in;
+        staged!(radix4_single::<FORWARD>(a, half / 2, t, k), words, false);
         half /= 4;
         first = false;
     }
-    staged!(tiles::<FORWARD>(a, t, k), first, true);
+    staged!(tiles::<FORWARD>(a, t, k), first && words_in, words_out);
 }
 
 #[target_feature(enable = "avx2,fma")]
 fn inverse_single(a: &mut [u64], tw: &Twiddles) {
+    inverse_forms(a, tw, true, true)
+}
+
+/// [`inverse_single`] with the forms of [`forward_forms`].
+#[target_feature(enable = "avx2,fma")]
+fn inverse_forms(a: &mut [u64], tw: &Twiddles, words_in: bool, words_out: bool) {
     let n = tw.len();
     if n < MIN_VECTOR_LEN {
+        assert!(words_in && words_out, "short transforms take words");
         return scalar::inverse(a, tw);
     }
     let (k, t) = (consts(tw.modulus()), &tw.inv);
     // A radix-2 stage ends the transform when log2 n is odd; else the
     // last radix-4 step does (n >= 16 makes at least one follow the tiles).
     let ends_radix2 = n.trailing_zeros() % 2 == 1;
-    staged!(tiles::<INVERSE>(a, t, k), true, false);
+    staged!(tiles::<INVERSE>(a, t, k), words_in, false);
     let mut q = W;
     while 2 * q <= n / 2 {
         let last = !ends_radix2 && 8 * q > n / 2;
-        staged!(radix4_single::<INVERSE>(a, q, t, k), false, last);
+        staged!(
+            radix4_single::<INVERSE>(a, q, t, k),
+            false,
+            last && words_out
+        );
         q *= 4;
     }
     if q == n / 2 {
-        staged!(radix2_single::<INVERSE>(a, q, t, k), false, true);
+        staged!(radix2_single::<INVERSE>(a, q, t, k), false, words_out);
     }
 }
 
@@ -780,14 +824,21 @@ fn inverse_interleaved(a: &mut [u64], lanes: usize, tw: &Twiddles) {
 
 #[target_feature(enable = "avx2,fma")]
 fn pointwise_all(a: &mut [u64], b: &[u64], scale: u64, m: &Modulus50) {
+    pointwise_forms::<true>(a, b, scale, m)
+}
+
+/// [`pointwise_all`] on words, or on the doubles of a fused row step.
+#[target_feature(enable = "avx2,fma")]
+fn pointwise_forms<const WORDS: bool>(a: &mut [u64], b: &[u64], scale: u64, m: &Modulus50) {
     let (k, s) = (consts(m), splat_tw(MulConst::new(scale, m)));
     let ((xs, x), (ys, y)) = (a.as_chunks_mut::<W>(), b.as_chunks::<W>());
     for (xv, yv) in xs.iter_mut().zip(ys) {
-        store(xv, mul_fixed(mul_var(load(xv, k), load(yv, k), k), s, k), k);
+        let v = mul_var(load_in::<WORDS>(xv, k), load_in::<WORDS>(yv, k), k);
+        store_out::<WORDS>(xv, mul_fixed(v, s, k), k);
     }
     if !x.is_empty() {
-        let v = mul_var(load_part(x, k), load_part(y, k), k);
-        store_part(x, mul_fixed(v, s, k), k);
+        let v = mul_var(load_part_in::<WORDS>(x, k), load_part_in::<WORDS>(y, k), k);
+        store_part_out::<WORDS>(x, mul_fixed(v, s, k), k);
     }
 }
 
@@ -990,6 +1041,16 @@ fn mul_power(x: D, w: D, k: Consts) -> D {
 /// (the first ones are below `p`).
 #[target_feature(enable = "avx2,fma")]
 fn twiddle_all(row: &mut [u64], step: u64, m: &Modulus50) {
+    twiddle_forms::<true, true>(row, step, m)
+}
+
+/// [`twiddle_all`] reading and writing words or doubles.
+#[target_feature(enable = "avx2,fma")]
+fn twiddle_forms<const IN_WORDS: bool, const OUT_WORDS: bool>(
+    row: &mut [u64],
+    step: u64,
+    m: &Modulus50,
+) {
     const SPAN: usize = CHAIN_VECTORS * W;
     let k = consts(m);
     let chain = PowerChain::<SPAN>::new(step, m);
@@ -1002,7 +1063,7 @@ fn twiddle_all(row: &mut [u64], step: u64, m: &Modulus50) {
     let (blocks, rest) = row.as_chunks_mut::<SPAN>();
     for block in blocks {
         for (v, w) in block.as_chunks_mut::<W>().0.iter_mut().zip(pw.iter_mut()) {
-            store(v, mul_power(load(v, k), *w, k), k);
+            store_out::<OUT_WORDS>(v, mul_power(load_in::<IN_WORDS>(v, k), *w, k), k);
             *w = mul_fixed(*w, stride, k);
         }
     }
@@ -1011,11 +1072,38 @@ fn twiddle_all(row: &mut [u64], step: u64, m: &Modulus50) {
     let (vs, tail) = rest.as_chunks_mut::<W>();
     let whole = vs.len();
     for (v, w) in vs.iter_mut().zip(pw) {
-        store(v, mul_power(load(v, k), w, k), k);
+        store_out::<OUT_WORDS>(v, mul_power(load_in::<IN_WORDS>(v, k), w, k), k);
     }
     if !tail.is_empty() {
-        store_part(tail, mul_power(load_part(tail, k), pw[whole], k), k);
+        store_part_out::<OUT_WORDS>(
+            tail,
+            mul_power(load_part_in::<IN_WORDS>(tail, k), pw[whole], k),
+            k,
+        );
     }
+}
+
+#[target_feature(enable = "avx2,fma")]
+fn row_product_doubles(
+    a: &mut [u64],
+    b: &mut [u64],
+    with_b: bool,
+    (step_fwd, step_inv): (u64, u64),
+    tw: &Twiddles,
+) {
+    let m = tw.modulus();
+    twiddle_forms::<true, false>(a, step_fwd, m);
+    forward_forms(a, tw, false, false);
+    if with_b {
+        twiddle_forms::<true, false>(b, step_fwd, m);
+        forward_forms(b, tw, false, false);
+    } else {
+        b.copy_from_slice(a);
+    }
+    // The CRT divides out the transform length.
+    pointwise_forms::<false>(a, b, 1, m);
+    inverse_forms(a, tw, false, false);
+    twiddle_forms::<false, true>(a, step_inv, m);
 }
 
 #[cfg(test)]

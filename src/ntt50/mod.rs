@@ -640,6 +640,44 @@ impl Kernel {
             _ => unsupported(self),
         }
     }
+
+    /// The four-step row step on one row of `tw.len()` words: `a` (and
+    /// `b` when `with_b`) times `step_fwd^j` and forward-transformed; then
+    /// `a` times `b` pointwise (`a` squared when not `with_b`),
+    /// inverse-transformed and times `step_inv^j`. Inputs in `[0, 4p)`;
+    /// the result, in `a`, in `[0, 2p)` and times the row's length; `b` is
+    /// scratch afterwards. The AVX2 path keeps the whole step in doubles
+    /// where the row is a power of two of at least 16. Panics if the path
+    /// is unsupported or a row's length differs from the table's.
+    pub fn row_product(
+        self,
+        a: &mut [u64],
+        b: &mut [u64],
+        with_b: bool,
+        (step_fwd, step_inv): (u64, u64),
+        tw: &Twiddles,
+    ) {
+        assert!(
+            a.len() == tw.len && b.len() == tw.len,
+            "row is not the table's length"
+        );
+        #[cfg(target_arch = "x86_64")]
+        if self == Kernel::Avx2 && tw.three.is_none() && tw.len >= avx2::MIN_VECTOR_LEN {
+            return avx2::row_product(a, b, with_b, (step_fwd, step_inv), tw);
+        }
+        let m = tw.modulus();
+        self.twiddle_powers(a, step_fwd, m);
+        self.forward(a, tw);
+        if with_b {
+            self.twiddle_powers(b, step_fwd, m);
+            self.forward(b, tw);
+        } else {
+            b.copy_from_slice(a);
+        }
+        self.pointwise(a, b, 1, m);
+        self.inverse(a, tw);
+        self.twiddle_powers(a, step_inv, m);
+    }
 }
 
 impl Kernel {

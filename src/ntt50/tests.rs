@@ -694,3 +694,72 @@ fn lanes_refuse_a_radix3_table() {
     let mut a = vec![0u64; 48 * 2];
     Kernel::Scalar.forward_lanes(&mut a, 2, &tw);
 }
+
+/// `k`'s row step against the definition it computes: with
+/// `step_inv = step^-1`, the result is `n` times the convolution of `a`
+/// and `b` wrapped around with the factor `step^n`, that is
+/// `n * (sum over i + j = l of a_i b_j + step^n * sum over i + j = l + n)`.
+/// Lengths below, at and above the vector paths' shortest, powers of two
+/// and `3 * 2^k`, inputs over all of `[0, 4p)` and its edges, squares, and
+/// guard words around both rows.
+fn row_product_matches_wrapped_convolution(k: Kernel) {
+    for (pi, pr) in PRIMES.iter().enumerate().take(2) {
+        let (m, p) = (pr.modulus, pr.modulus.p);
+        let lens = (0..=9).map(|l| 1usize << l).chain((0..=7).map(|l| 3 << l));
+        for n in lens {
+            let tw = Twiddles::new(pr, n);
+            let r = seeded_words(1, (pi * 100 + n) as u64)[0] % (p - 1) + 1;
+            for step in [1, r, pr.root_of_unity_any(2 * n as u64)] {
+                let step_inv = m.inv(step);
+                let wrap = m.pow(step, n as u64);
+                let xs = inputs(n, 4 * p, n as u64 + step);
+                let ys = inputs(n, 4 * p, n as u64 + step + 1);
+                for (case, (x, y)) in xs.iter().zip(&ys).enumerate() {
+                    for with_b in [true, false] {
+                        let y = if with_b { y } else { x };
+                        let what = format!("{k:?} p{pi} n={n} step={step} case {case} b={with_b}");
+                        let (mut ga, mut gb) = (Guarded::new(x), Guarded::new(y));
+                        k.row_product(ga.data(), gb.data(), with_b, (step, step_inv), &tw);
+                        let got = ga.finish();
+                        gb.finish();
+                        let mut want = vec![0u64; n];
+                        for (i, &xi) in x.iter().enumerate() {
+                            for (j, &yj) in y.iter().enumerate() {
+                                let t = m.mul(xi % p, yj % p);
+                                let (l, t) = if i + j < n {
+                                    (i + j, t)
+                                } else {
+                                    (i + j - n, m.mul(t, wrap))
+                                };
+                                want[l] = (want[l] + t) % p;
+                            }
+                        }
+                        for (l, (g, w)) in got.iter().zip(&want).enumerate() {
+                            assert!(*g < 2 * p, "{what}: {g} out of range at {l}");
+                            assert_eq!(g % p, m.mul(*w, n as u64 % p), "{what}: at {l}");
+                        }
+                    }
+                }
+            }
+        }
+    }
+}
+
+#[test]
+fn scalar_row_product_matches_wrapped_convolution() {
+    row_product_matches_wrapped_convolution(Kernel::Scalar);
+}
+
+#[test]
+fn avx2_row_product_matches_wrapped_convolution() {
+    if !skip(Kernel::Avx2) {
+        row_product_matches_wrapped_convolution(Kernel::Avx2);
+    }
+}
+
+#[test]
+fn ifma_row_product_matches_wrapped_convolution() {
+    if !skip(Kernel::Ifma) {
+        row_product_matches_wrapped_convolution(Kernel::Ifma);
+    }
+}
