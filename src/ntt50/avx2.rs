@@ -109,7 +109,7 @@ pub fn radix3_forward(a: &mut [u64], t: &Radix3) {
     require(Kernel::Avx2);
     // SAFETY: `require` checked that the CPU has every feature the callee
     // is compiled for.
-    let done = unsafe { radix3_vectors::<FORWARD>(a, t) };
+    let done = unsafe { radix3_vectors::<FORWARD, true, true>(a, t) };
     scalar::radix3_forward_from(a, t, done);
 }
 
@@ -121,7 +121,7 @@ pub fn radix3_inverse(a: &mut [u64], t: &Radix3) {
     require(Kernel::Avx2);
     // SAFETY: `require` checked that the CPU has every feature the callee
     // is compiled for.
-    let done = unsafe { radix3_vectors::<INVERSE>(a, t) };
+    let done = unsafe { radix3_vectors::<INVERSE, true, true>(a, t) };
     scalar::radix3_inverse_from(a, t, done);
 }
 
@@ -155,8 +155,17 @@ pub fn twiddle_powers(row: &mut [u64], step: u64, m: &Modulus50) {
     unsafe { twiddle_all(row, step, m) }
 }
 
-/// [`super::Kernel::row_product`] on one row of a power-of-two length of
-/// at least 16, in doubles from the first twiddle to the last: words are
+/// Whether [`row_product`] takes rows of this table: lengths `2^k` or
+/// `3 * 2^k` whose power-of-two transforms are vector ones.
+pub(crate) fn fuses_row(tw: &Twiddles) -> bool {
+    match &tw.three {
+        None => tw.len() >= MIN_VECTOR_LEN,
+        Some(t3) => t3.sub.len() >= MIN_VECTOR_LEN,
+    }
+}
+
+/// [`super::Kernel::row_product`] on one row that [`fuses_row`] accepts,
+/// in doubles from the first twiddle to the last: words are
 /// converted only as the rows come in and as the result goes out. Panics
 /// if the CPU lacks AVX2 or FMA, or the row does not fit the table.
 pub(crate) fn row_product(
@@ -166,12 +175,11 @@ pub(crate) fn row_product(
     (step_fwd, step_inv): (u64, u64),
     tw: &Twiddles,
 ) {
-    check_shape(a, 1, tw);
-    check_shape(b, 1, tw);
     assert!(
-        tw.three.is_none() && tw.len() >= MIN_VECTOR_LEN,
-        "row not fused"
+        a.len() == tw.len() && b.len() == tw.len(),
+        "row is not the table's length"
     );
+    assert!(fuses_row(tw), "row not fused");
     require(Kernel::Avx2);
     // SAFETY: `require` checked that the CPU has every feature the callee
     // is compiled for.
@@ -910,7 +918,10 @@ fn radix3_sums(a: D, b: D, c: D, omega: Tw, k: Consts) -> [D; 3] {
 /// The radix-3 step over the whole vectors of the thirds; returns the
 /// position where the scalar tail begins.
 #[target_feature(enable = "avx2,fma")]
-fn radix3_vectors<const FWD: bool>(a: &mut [u64], t: &Radix3) -> usize {
+fn radix3_vectors<const FWD: bool, const IN_WORDS: bool, const OUT_WORDS: bool>(
+    a: &mut [u64],
+    t: &Radix3,
+) -> usize {
     let k = consts(t.sub.modulus());
     let third = t.sub.len();
     let full = third / W * W;
@@ -928,7 +939,11 @@ fn radix3_vectors<const FWD: bool>(a: &mut [u64], t: &Radix3) -> usize {
     let (r1, r2) = (Run::new(t1, 0, full), Run::new(t2, 0, full));
     let omega = splat_tw(omega);
     for v in 0..full / W {
-        let (a, b, c) = (load(&x[v], k), load(&y[v], k), load(&z[v], k));
+        let (a, b, c) = (
+            load_in::<IN_WORDS>(&x[v], k),
+            load_in::<IN_WORDS>(&y[v], k),
+            load_in::<IN_WORDS>(&z[v], k),
+        );
         let (w1, w2) = (load_tw(&r1, v), load_tw(&r2, v));
         let out = if FWD {
             let [s0, s1, s2] = radix3_sums(a, b, c, omega, k);
@@ -938,9 +953,9 @@ fn radix3_vectors<const FWD: bool>(a: &mut [u64], t: &Radix3) -> usize {
             let (z1, z2) = (mul_fixed_4p(b, w1, k), mul_fixed_4p(c, w2, k));
             radix3_sums(z0, z1, z2, omega, k)
         };
-        store(&mut x[v], out[0], k);
-        store(&mut y[v], out[1], k);
-        store(&mut z[v], out[2], k);
+        store_out::<OUT_WORDS>(&mut x[v], out[0], k);
+        store_out::<OUT_WORDS>(&mut y[v], out[1], k);
+        store_out::<OUT_WORDS>(&mut z[v], out[2], k);
     }
     full
 }
@@ -1093,17 +1108,49 @@ fn row_product_doubles(
 ) {
     let m = tw.modulus();
     twiddle_forms::<true, false>(a, step_fwd, m);
-    forward_forms(a, tw, false, false);
+    forward_doubles(a, tw);
     if with_b {
         twiddle_forms::<true, false>(b, step_fwd, m);
-        forward_forms(b, tw, false, false);
+        forward_doubles(b, tw);
     } else {
         b.copy_from_slice(a);
     }
     // The CRT divides out the transform length.
     pointwise_forms::<false>(a, b, 1, m);
-    inverse_forms(a, tw, false, false);
+    inverse_doubles(a, tw);
     twiddle_forms::<false, true>(a, step_inv, m);
+}
+
+/// The forward transform of a row [`fuses_row`] accepts, doubles in and
+/// out: the radix-3 step first where the length has one (every third then
+/// a whole number of vectors).
+#[target_feature(enable = "avx2,fma")]
+fn forward_doubles(a: &mut [u64], tw: &Twiddles) {
+    match &tw.three {
+        None => forward_forms(a, tw, false, false),
+        Some(t3) => {
+            let done = radix3_vectors::<FORWARD, false, false>(a, t3);
+            assert_eq!(done, t3.sub.len(), "a radix-3 tail in doubles");
+            for part in a.chunks_exact_mut(t3.sub.len()) {
+                forward_forms(part, &t3.sub, false, false);
+            }
+        }
+    }
+}
+
+/// [`forward_doubles`]' inverse: the radix-3 step last.
+#[target_feature(enable = "avx2,fma")]
+fn inverse_doubles(a: &mut [u64], tw: &Twiddles) {
+    match &tw.three {
+        None => inverse_forms(a, tw, false, false),
+        Some(t3) => {
+            for part in a.chunks_exact_mut(t3.sub.len()) {
+                inverse_forms(part, &t3.sub, false, false);
+            }
+            let done = radix3_vectors::<INVERSE, false, false>(a, t3);
+            assert_eq!(done, t3.sub.len(), "a radix-3 tail in doubles");
+        }
+    }
 }
 
 #[cfg(test)]

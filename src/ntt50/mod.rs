@@ -647,7 +647,7 @@ impl Kernel {
     /// inverse-transformed and times `step_inv^j`. Inputs in `[0, 4p)`;
     /// the result, in `a`, in `[0, 2p)` and times the row's length; `b` is
     /// scratch afterwards. The AVX2 path keeps the whole step in doubles
-    /// where the row is a power of two of at least 16. Panics if the path
+    /// where the row's power-of-two transforms are at least 16 long. Panics if the path
     /// is unsupported or a row's length differs from the table's.
     pub fn row_product(
         self,
@@ -662,7 +662,7 @@ impl Kernel {
             "row is not the table's length"
         );
         #[cfg(target_arch = "x86_64")]
-        if self == Kernel::Avx2 && tw.three.is_none() && tw.len >= avx2::MIN_VECTOR_LEN {
+        if self == Kernel::Avx2 && avx2::fuses_row(tw) {
             return avx2::row_product(a, b, with_b, (step_fwd, step_inv), tw);
         }
         let m = tw.modulus();
