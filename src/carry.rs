@@ -115,15 +115,18 @@ where
         return carry;
     }
     // First pass: each chunk with zero carry in, returning its carry out.
+    // Each worker keeps its coefficient buffer: a fresh megabyte per chunk
+    // would come from the system each time, and fault in page by page.
     let carries: Vec<U192> = digits
         .par_chunks_mut(chunk)
         .enumerate()
-        .map(|(ci, digits)| {
+        .map_init(Vec::new, |coeffs, (ci, digits)| {
             let first = ci * chunk;
-            let mut coeffs = vec![[0u64; 3]; digits.len()];
-            coeff(first, &mut coeffs);
+            coeffs.resize(digits.len(), [0u64; 3]);
+            let coeffs = &mut coeffs[..digits.len()];
+            coeff(first, coeffs);
             let mut carry = [0u64; 3];
-            for (d, c) in digits.iter_mut().zip(&coeffs) {
+            for (d, c) in digits.iter_mut().zip(coeffs.iter()) {
                 let (q, r) = split_limb(add192(*c, carry), radix);
                 *d = r;
                 carry = q;

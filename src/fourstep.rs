@@ -750,25 +750,29 @@ impl FourStep {
     /// corrupted memory or scratch data.
     pub fn check_zero_tail<S: Store + ?Sized>(&self, stores: &[&S], first: usize) -> Result<()> {
         let n = self.shape.len();
+        // One set of buffers for every window: fresh ones would fault in
+        // anew each time.
+        let (mut out, mut tmp) = (Vec::new(), Vec::new());
         let mut k = first;
         while k < n {
             let w = (n - k).min(1 << 16);
-            self.check_zero_tail_range(stores, k, w)?;
+            out.resize(w, [0u64; 3]);
+            self.check_zero_tail_range(stores, k, &mut out[..w], &mut tmp)?;
             k += w;
         }
         Ok(())
     }
 
-    /// [`FourStep::check_zero_tail`] for coefficients `first..first + len`.
+    /// [`FourStep::check_zero_tail`] for the coefficients from `first`,
+    /// `out.len()` of them; `out` and `tmp` are scratch.
     fn check_zero_tail_range<S: Store + ?Sized>(
         &self,
         stores: &[&S],
         first: usize,
-        len: usize,
+        out: &mut [U192],
+        tmp: &mut Vec<Vec<u64>>,
     ) -> Result<()> {
-        let mut out = vec![[0u64; 3]; len];
-        let mut tmp = Vec::new();
-        self.coefficients(stores, first, &mut out, &mut tmp)?;
+        self.coefficients(stores, first, out, tmp)?;
         match out.iter().position(|v| *v != [0, 0, 0]) {
             None => Ok(()),
             Some(i) => Err(Error::verify(
