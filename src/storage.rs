@@ -195,10 +195,12 @@ impl std::ops::DerefMut for WordBuf {
 
 /// A store in RAM.
 ///
-/// Words are accessed as atomics with relaxed ordering: concurrent passes
-/// write disjoint ranges, and rayon's joins order the passes, so no stronger
-/// ordering is needed, and plain loads and stores are what x86 executes for
-/// them. The copies cost about a cycle a word, small beside the transforms.
+/// The words are held as atomics, so that tasks may write their disjoint
+/// ranges through a shared store; but the copies in and out are plain
+/// vector copies. Concurrent passes write disjoint ranges and rayon's joins
+/// order the passes, so no copy races another, and word-by-word relaxed
+/// atomics (which never merge into vector moves) cost the column passes
+/// 13-18% of their time on the decimal 4·10^7-digit pair.
 pub struct RamStore {
     buf: WordBuf,
 }
@@ -241,17 +243,28 @@ impl Store for RamStore {
 
     fn read(&self, start: usize, out: &mut [u64]) -> Result<()> {
         let src = &self.words()[start..start + out.len()];
-        for (o, w) in out.iter_mut().zip(src) {
-            *o = w.load(Ordering::Relaxed);
+        // SAFETY: `src` and `out` are both `out.len()` words, and distinct
+        // memory (`out` is a unique borrow). The passes never write a range
+        // while another task reads or writes it (rayon's joins order the
+        // passes, and the blocks within one are disjoint), so these plain
+        // loads race with nothing; they compile to a vector copy, which
+        // word-by-word atomic loads do not.
+        unsafe {
+            std::ptr::copy_nonoverlapping(src.as_ptr() as *const u64, out.as_mut_ptr(), out.len())
         }
         Ok(())
     }
 
     fn write(&self, start: usize, data: &[u64]) -> Result<()> {
         let dst = &self.words()[start..start + data.len()];
-        for (w, d) in dst.iter().zip(data) {
-            w.store(*d, Ordering::Relaxed);
+        if dst.is_empty() {
+            return Ok(());
         }
+        // SAFETY: as in `read`: `dst` is `data.len()` words that no other
+        // task touches during this pass, and `AtomicU64::as_ptr` gives a
+        // pointer that may be written through (the words are interior
+        // mutable), disjoint from the shared borrow `data`.
+        unsafe { std::ptr::copy_nonoverlapping(data.as_ptr(), dst[0].as_ptr(), data.len()) }
         Ok(())
     }
 }
