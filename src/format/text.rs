@@ -626,6 +626,9 @@ pub(crate) fn put_limb(kind: TextKind, out: &mut [u8], x: u64) -> bool {
 
 #[cfg(test)]
 mod tests {
+    use super::*;
+    use std::io;
+
     /// The word-parallel eight-digit writer against the standard
     /// formatter: every value at a lane boundary (multiples of 10, 100
     /// and 10^4, and one either side) and a seeded sweep of the range.
@@ -638,22 +641,14 @@ mod tests {
                 values.extend([v - 1, v, (v + 1).min(99_999_999)]);
             }
         }
-        let mut x = 0x9e37_79b9_7f4a_7c15u64;
-        for _ in 0..200_000 {
-            x ^= x << 13;
-            x ^= x >> 7;
-            x ^= x << 17;
-            values.push(x % 100_000_000);
-        }
+        let mut rng = crate::rng::Rng::new(8);
+        values.extend((0..200_000).map(|_| rng.below(100_000_000)));
         for v in values {
             let mut out = [0u8; 8];
             put8(&mut out, v);
             assert_eq!(std::str::from_utf8(&out).unwrap(), format!("{v:08}"));
         }
     }
-
-    use super::*;
-    use std::io;
 
     #[test]
     fn swar_decimal_matches_naive() {

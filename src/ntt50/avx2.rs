@@ -35,7 +35,7 @@ type D = __m256d;
 const W: usize = 4;
 
 /// The shortest single vector the vector code takes: one 4x4 tile.
-pub(crate) const MIN_VECTOR_LEN: usize = W * W;
+const MIN_VECTOR_LEN: usize = W * W;
 
 /// 2^52: adding it to an integer below 2^52 puts the integer in the
 /// mantissa bits.

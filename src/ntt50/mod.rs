@@ -647,8 +647,9 @@ impl Kernel {
     /// inverse-transformed and times `step_inv^j`. Inputs in `[0, 4p)`;
     /// the result, in `a`, in `[0, 2p)` and times the row's length; `b` is
     /// scratch afterwards. The AVX2 path keeps the whole step in doubles
-    /// where the row's power-of-two transforms are at least 16 long. Panics if the path
-    /// is unsupported or a row's length differs from the table's.
+    /// where the row's power-of-two transforms are at least 16 long.
+    /// Panics if the path is unsupported or a row's length differs from
+    /// the table's.
     pub fn row_product(
         self,
         a: &mut [u64],
