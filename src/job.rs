@@ -734,6 +734,10 @@ pub fn multiply_files(opts: &MulOptions) -> Result<MulReport> {
 
     let write = Instant::now();
     let target = opts.output.clone();
+    // A streamed product runs its CRT and carry inside the write.
+    if matches!(product, Product::Streamed(_)) {
+        METER.fold_into_next("CRT and carry");
+    }
     METER.begin("write the product");
     METER.add_units(product.len() as u64, 0);
     // The top limb, for the manifest's digit count: read now, since a read
@@ -818,6 +822,10 @@ pub fn multiply_files(opts: &MulOptions) -> Result<MulReport> {
     METER.end();
     let (top, carry_seconds) = match &product {
         Product::Streamed(p) => {
+            // The writer stops at the top limb of the layout; the carry
+            // above the coefficients and the check of the product against
+            // the layout come with the rest.
+            p.make(usize::MAX)?;
             let mut t = [0u64];
             p.read(product.len() - 1, &mut t)
                 .map_err(|e| Error::io(&target, e))?;
@@ -937,8 +945,6 @@ fn note_written(tap: &ResidueTap, first: usize, limbs: &[u64]) {
     METER.advance(limbs.len() as u64);
 }
 
-/// The limbs of a product on disk as the writer takes them: read from its
-/// store (a signal stops the reading of a long one) and noted as written.
 /// A streamed product's limbs for the writer, tapped as they are written.
 struct StreamFeed<'a> {
     product: &'a StreamedProduct,
@@ -959,6 +965,8 @@ impl LimbFeed for StreamFeed<'_> {
     }
 }
 
+/// The limbs of a product on disk as the writer takes them: read from its
+/// store (a signal stops the reading of a long one) and noted as written.
 struct StoreFeed<'a> {
     store: &'a dyn Store,
     tap: &'a ResidueTap,

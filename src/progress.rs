@@ -96,6 +96,8 @@ struct Inner {
     passes: Vec<(String, u64)>,
     /// The next plan pass expected; passes before it are finished.
     next: usize,
+    /// Plan passes that run inside the pass after them: never reported.
+    folded: Vec<usize>,
     first_start: Option<Instant>,
     current: Option<Current>,
     /// Weight of the plan passes finished, in this process or before.
@@ -186,7 +188,7 @@ impl Meter {
                 let skipped: u64 = inner.passes[inner.next..i].iter().map(|p| p.1).sum();
                 inner.finished_weight += skipped as f64;
                 let count = inner.passes.len();
-                for j in inner.next..i {
+                for j in (inner.next..i).filter(|j| !inner.folded.contains(j)) {
                     let name = inner.passes[j].0.clone();
                     inner.events.push(Event::PassDone(PassDone {
                         index: Some(j + 1),
@@ -211,6 +213,23 @@ impl Meter {
         });
         drop(g);
         self.reset_units();
+    }
+
+    /// Pass `name`, still to come, runs inside the pass after it (a
+    /// streamed product's CRT and carry run inside its write): it is not
+    /// reported, and its weight goes to that next pass.
+    pub fn fold_into_next(&self, name: &str) {
+        let mut g = self.lock();
+        let Some(inner) = g.as_mut() else { return };
+        let from = inner.next.min(inner.passes.len());
+        if let Some(i) = inner.passes[from..].iter().position(|(n, _)| n == name) {
+            let i = i + from;
+            if i + 1 < inner.passes.len() {
+                let weight = std::mem::take(&mut inner.passes[i].1);
+                inner.passes[i + 1].1 += weight;
+                inner.folded.push(i);
+            }
+        }
     }
 
     /// The pass under way failed: it ends without a report that it is done.
@@ -459,6 +478,30 @@ mod tests {
         let o = m.snapshot_at(t0 + Duration::from_secs(10)).overall.unwrap();
         assert!((o.fraction - 0.25).abs() < 1e-12);
         assert_eq!(o.eta, Some(Duration::from_secs(30)));
+    }
+
+    #[test]
+    fn a_folded_pass_is_not_reported_and_its_weight_moves_on() {
+        let m = Meter::new();
+        m.start(&plan(&[("one", 100), ("carry", 100), ("write", 200)]));
+        let t0 = Instant::now();
+        m.begin_at("one", t0);
+        m.fold_into_next("carry");
+        m.begin_at("write", t0 + Duration::from_secs(1));
+        let events = m.take_events();
+        assert!(
+            matches!(&events[..], [Event::PassDone(d)] if d.name == "one" && d.count == 3),
+            "{events:?}"
+        );
+        let o = m.snapshot_at(t0 + Duration::from_secs(1)).overall.unwrap();
+        assert!((o.fraction - 0.25).abs() < 1e-12);
+        let p = m.snapshot_at(t0 + Duration::from_secs(1)).pass.unwrap();
+        assert_eq!((p.index, p.count), (Some(3), 3));
+        m.add_units(10, 0);
+        m.advance(5);
+        // Half the write's doubled weight: 100 + 300 / 2 of 400.
+        let o = m.snapshot_at(t0 + Duration::from_secs(2)).overall.unwrap();
+        assert!((o.fraction - 250.0 / 400.0).abs() < 1e-12, "{}", o.fraction);
     }
 
     #[test]
