@@ -78,6 +78,10 @@ impl<S: LimbSource + ?Sized> LimbSource for Counted<'_, S> {
     fn peek_limb(&self, i: usize) -> u64 {
         self.0.peek_limb(i)
     }
+
+    fn peek_limbs(&self, first: usize, out: &mut [u64]) {
+        self.0.peek_limbs(first, out)
+    }
 }
 
 /// The signed residues of an operand file modulo each of `moduli`.

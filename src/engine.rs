@@ -127,7 +127,9 @@ where
             );
             out
         }
-        Algorithm::Ntt { shape } => ntt_product(plan, shape, a, b, &mut Timer::default())?,
+        Algorithm::Ntt { shape, folded } => {
+            ntt_product(plan, (shape, folded), a, b, &mut Timer::default())?
+        }
         Algorithm::Pieces {
             product_on_disk: false,
             ..
@@ -206,10 +208,11 @@ struct Residues {
     spare: Option<RamStore>,
 }
 
-/// [`transform_passes`] over RAM stores.
+/// [`transform_passes`] over RAM stores, with `folded` coefficients past
+/// the transform's length folded back ([`crate::wrap`]).
 fn ntt_residues<A, B>(
     plan: &Plan,
-    shape: Shape,
+    (shape, folded): (Shape, usize),
     a: &A,
     b: &B,
     timer: &mut Timer,
@@ -221,7 +224,12 @@ where
     let (la, lb) = (plan.a_limbs, plan.b_limbs);
     let fs = FourStep::new(shape, plan.prime_set, plan.radix);
     let n = shape.len();
-    let stores_a: Vec<RamStore> = (0..fs.prime_count()).map(|_| RamStore::zeroed(n)).collect();
+    let count = la + lb - 1;
+    assert_eq!(folded, count.saturating_sub(n), "the plan folds what wraps");
+    // Room for the folded coefficients' residues past the transform.
+    let stores_a: Vec<RamStore> = (0..fs.prime_count())
+        .map(|_| RamStore::zeroed(n + folded))
+        .collect();
     let spare = (!plan.square).then(|| RamStore::zeroed(n.max(plan.product_limbs)));
     // B is read once per prime: decode it once (text parsing is not free),
     // and let the column passes copy from the decoded limbs. A mapped
@@ -244,7 +252,14 @@ where
         timer,
     )?;
     // The residues are only read from here on: plain slices, with no copy.
-    let residues = stores_a.into_iter().map(RamStore::into_words).collect();
+    let mut residues: Vec<WordBuf> = stores_a.into_iter().map(RamStore::into_words).collect();
+    if folded > 0 {
+        timer.pass(plan::WRAP_PASS, || {
+            let mut views: Vec<&mut [u64]> = residues.iter_mut().map(|w| &mut w[..]).collect();
+            let b_top = (!plan.square).then_some((&b_limbs[..], lb));
+            crate::wrap::fold_wrapped(&fs, (a, la), b_top, count, &mut views)
+        })?;
+    }
     Ok(Residues {
         fs,
         residues,
@@ -254,7 +269,13 @@ where
 
 /// The NTT in RAM: [`ntt_residues`], then the CRT and carry pass write the
 /// limbs into the store B used (or a new buffer for a square).
-fn ntt_product<A, B>(plan: &Plan, shape: Shape, a: &A, b: &B, timer: &mut Timer) -> Result<WordBuf>
+fn ntt_product<A, B>(
+    plan: &Plan,
+    shape: (Shape, usize),
+    a: &A,
+    b: &B,
+    timer: &mut Timer,
+) -> Result<WordBuf>
 where
     A: LimbSource + ?Sized,
     B: LimbSource + ?Sized,
@@ -360,8 +381,8 @@ where
             let (run, _) = OutOfCore::open(plan, (shape, window), &space, None, &[])?;
             run.run(a, b, timer)
         }
-        Algorithm::Ntt { shape } => {
-            ntt_product(plan, shape, a, b, timer).map(|w| Product::Ram(trim(w)))
+        Algorithm::Ntt { shape, folded } => {
+            ntt_product(plan, (shape, folded), a, b, timer).map(|w| Product::Ram(trim(w)))
         }
         Algorithm::Pieces { .. } => {
             let name = plan.passes[0].name.clone();
@@ -398,10 +419,10 @@ where
     A: LimbSource + ?Sized,
     B: LimbSource + ?Sized,
 {
-    let Algorithm::Ntt { shape } = plan.algorithm else {
+    let Algorithm::Ntt { shape, folded } = plan.algorithm else {
         return execute_timed(plan, a, b, scratch_dir, timer);
     };
-    let r = ntt_residues(plan, shape, a, b, timer)?;
+    let r = ntt_residues(plan, (shape, folded), a, b, timer)?;
     let count = plan.a_limbs + plan.b_limbs - 1;
     let limbs = r
         .spare

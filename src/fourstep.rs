@@ -313,6 +313,7 @@ enum Combiner {
 pub struct FourStep {
     shape: Shape,
     set: PrimeSet,
+    radix: Radix,
     /// Half the limb base when the set transforms balanced digits.
     balance_half: Option<u64>,
     tables: Vec<PrimeArith>,
@@ -454,6 +455,7 @@ impl FourStep {
                 FourStep {
                     shape,
                     set,
+                    radix,
                     balance_half,
                     tables: tables
                         .into_iter()
@@ -465,6 +467,7 @@ impl FourStep {
             PrimeSet::Four50(kernel) | PrimeSet::Three50(kernel) => FourStep {
                 shape,
                 set,
+                radix,
                 balance_half,
                 tables: n50::primes::PRIMES[..set.count()]
                     .iter()
@@ -667,6 +670,24 @@ impl FourStep {
                 log.finished(block, digest(log, buf))
             },
         )
+    }
+
+    /// The radix of the limbs the column passes read.
+    pub fn radix(&self) -> Radix {
+        self.radix
+    }
+
+    /// Prime `k`'s modulus and the factor its residues carry: the inverse
+    /// columns leave `scale * c mod p` for a coefficient `c`. `None` for
+    /// the 62-bit set, whose residues are in Montgomery form (the
+    /// wrap-around correction, the only user, is planned for the 50-bit
+    /// sets alone).
+    pub fn residue_scale(&self, k: usize) -> Option<(Modulus50, u64)> {
+        match &self.tables[k] {
+            PrimeArith::Wide(_) => None,
+            // The pointwise product keeps the scale at 1 (see `new`).
+            PrimeArith::Narrow(t) => Some((t.modulus, self.shape.len() as u64 % t.modulus.p)),
+        }
     }
 
     /// Column blocks of this shape.

@@ -52,6 +52,7 @@ pub mod storage;
 pub mod streamed;
 #[cfg(test)]
 pub(crate) mod test_oracles;
+pub mod wrap;
 pub use engine::multiply;
 pub mod check;
 pub mod demo;

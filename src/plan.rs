@@ -50,6 +50,11 @@ pub enum Algorithm {
     Ntt {
         /// The transform's shape.
         shape: Shape,
+        /// Coefficients past the transform's length, folded back by the
+        /// wrap-around correction ([`crate::wrap`]); 0 when the transform
+        /// covers the product.
+        #[serde(default)]
+        folded: usize,
     },
     /// Four-step NTT over scratch files, under the memory
     /// budget: column blocks of `shape.lanes` columns and single rows in
@@ -212,6 +217,57 @@ pub fn shape_for(min_len: usize, set: PrimeSet) -> Shape {
     }
 }
 
+/// The transform of an NTT product in RAM of `count` coefficients whose
+/// longer operand has `longer` limbs, with the coefficients it folds back:
+/// [`shape_for`] the whole product, or a shorter transform whose top
+/// coefficients wrap around and are folded back ([`crate::wrap`]), when
+/// the cost model finds it cheaper and it needs no more memory. The
+/// shorter one still holds both operands and folds back at most a quarter
+/// of its length. Only the 50-bit sets fold back.
+pub fn ram_shape_for(count: usize, longer: usize, set: PrimeSet) -> (Shape, usize) {
+    let plain = shape_for(count, set);
+    if !set.balanced_digits() {
+        return (plain, 0);
+    }
+    let k = set.count();
+    // Words of the residue stores and the spare store (B's, then the
+    // product's limbs) with and without folding.
+    let plain_words = (k + 1) * plain.len().max(count + 1);
+    let mut best = (transform_cost(plain.len()), plain, 0);
+    let mut pow2 = MIN_RADIX3_LEN;
+    while pow2 < count {
+        for len in [pow2, pow2 / 2 * 3] {
+            let folded = count.saturating_sub(len);
+            if folded == 0 || len < longer || 4 * folded > len || !set.supports_len(len) {
+                continue;
+            }
+            let short = fold_shape(folded, set).len();
+            let cost = transform_cost(len) + transform_cost(short);
+            let words = k * (len + folded) + (count + 1) + fold_words(folded, set);
+            if cost < best.0 && words <= plain_words {
+                let shape = shape_for(len, set);
+                debug_assert_eq!(shape.len(), len);
+                best = (cost, shape, folded);
+            }
+        }
+        pow2 *= 2;
+    }
+    (best.1, best.2)
+}
+
+/// The shape of the short product that gives `folded` wrapped
+/// coefficients: the top `folded + 1` limbs of each operand
+/// ([`crate::wrap`]).
+fn fold_shape(folded: usize, set: PrimeSet) -> Shape {
+    shape_for(2 * folded + 1, set)
+}
+
+/// Words the short product of the wrap-around correction holds at once:
+/// its stores (one per prime and B's) and the operands' top limbs.
+fn fold_words(folded: usize, set: PrimeSet) -> usize {
+    (set.count() + 1) * fold_shape(folded, set).len() + 2 * (folded + 1)
+}
+
 /// Below this many points every transform has a power-of-two length: the
 /// saving is a few microseconds there, and rows of `3 * 2^k` points keep
 /// at least `LANES` columns per block.
@@ -247,6 +303,9 @@ pub fn columns_of_a_name(count: usize) -> String {
     };
     format!("columns of A, {word} primes")
 }
+
+/// The pass that folds wrapped coefficients back ([`crate::wrap`]).
+pub const WRAP_PASS: &str = "fold back the wrapped coefficients";
 
 /// Plans a product.
 pub fn plan(req: &Request) -> Result<Plan> {
@@ -294,7 +353,13 @@ pub fn plan(req: &Request) -> Result<Plan> {
     };
     plan.prime_set = req.primes;
     let shape = shape_for(coefficients, req.primes);
-    let ntt_cost = transform_cost(shape.len());
+    let (ram_shape, folded) = ram_shape_for(coefficients, la.max(lb), req.primes);
+    let ntt_cost = transform_cost(ram_shape.len())
+        + if folded > 0 {
+            transform_cost(fold_shape(folded, req.primes).len())
+        } else {
+            0.0
+        };
     let schoolbook_cost = SCHOOLBOOK_COST * la as f64 * lb as f64;
     let pieces = best_pieces(req);
     let pieces_cost = pieces.as_ref().map_or(f64::INFINITY, |p| p.1);
@@ -348,7 +413,8 @@ pub fn plan(req: &Request) -> Result<Plan> {
     // the CRT over the set's primes is exact below their product.
     assert!(req.primes.exact_for(short as u64, req.radix));
     plan.primes = req.primes.primes();
-    let n_words = shape.len() as u64;
+    // The residues of folded coefficients sit past the transform's end.
+    let n_words = (ram_shape.len() + folded) as u64;
     // A store per prime for A, one reused for B and then for the product
     // limbs.
     let spare_words = n_words.max(product_limbs as u64);
@@ -357,8 +423,20 @@ pub fn plan(req: &Request) -> Result<Plan> {
     let product_store = if req.square { limb_bytes } else { 0 };
     let b_decoded = if req.square { 0 } else { 8 * lb as u64 };
     let threads = req.threads as u64;
-    let in_ram =
-        plan.ram_bytes + store_bytes + product_store + b_decoded + threads * per_thread_ram(shape);
+    // The short product of the wrap-around correction runs after the
+    // long one's transforms, beside its stores.
+    let fold_bytes = if folded > 0 {
+        8 * fold_words(folded, req.primes) as u64
+            + threads * per_thread_ram(fold_shape(folded, req.primes))
+    } else {
+        0
+    };
+    let in_ram = plan.ram_bytes
+        + store_bytes
+        + product_store
+        + b_decoded
+        + fold_bytes
+        + threads * per_thread_ram(ram_shape);
     let single_fits = in_ram <= req.memory;
     match pieces {
         // Pieces win when they are cheaper, or when the single transform
@@ -369,9 +447,12 @@ pub fn plan(req: &Request) -> Result<Plan> {
         _ => {}
     }
     if single_fits {
-        plan.algorithm = Algorithm::Ntt { shape };
+        plan.algorithm = Algorithm::Ntt {
+            shape: ram_shape,
+            folded,
+        };
         plan.ram_bytes = in_ram;
-        plan.passes = ntt_passes(req, shape);
+        plan.passes = ntt_passes(req, ram_shape, folded);
         return Ok(plan);
     }
     plan_out_of_core(req, plan, coefficients)
@@ -540,7 +621,7 @@ pub fn pieces_pass_name(count: usize, piece: usize, short: usize) -> String {
 
 /// The passes of the NTT path and the bytes each moves (through scratch
 /// files out of core, through RAM otherwise).
-fn ntt_passes(req: &Request, shape: Shape) -> Vec<Pass> {
+fn ntt_passes(req: &Request, shape: Shape, folded: usize) -> Vec<Pass> {
     let n8 = 8 * shape.len() as u64;
     let p8 = 8 * (req.a_limbs + req.b_limbs) as u64;
     let count = req.primes.count();
@@ -566,6 +647,13 @@ fn ntt_passes(req: &Request, shape: Shape) -> Vec<Pass> {
             name: format!("inverse columns, prime {k}"),
             read_bytes: n8,
             write_bytes: n8,
+        });
+    }
+    if folded > 0 {
+        passes.push(Pass {
+            name: WRAP_PASS.into(),
+            read_bytes: 8 * count as u64 * folded as u64,
+            write_bytes: 16 * count as u64 * folded as u64,
         });
     }
     passes.push(Pass {
@@ -628,7 +716,7 @@ fn plan_out_of_core(req: &Request, mut plan: Plan, coefficients: usize) -> Resul
     // and one for the row pass's output (so that no pass writes where it
     // reads, and an interrupted block can always be redone).
     plan.scratch_bytes = 8 * (req.primes.count() as u64 * n_words + spare_words + n_words);
-    plan.passes = ntt_passes(req, shape);
+    plan.passes = ntt_passes(req, shape, 0);
     Ok(plan)
 }
 
@@ -759,6 +847,52 @@ mod tests {
     /// Over a grid of sizes and budgets: every plan fits its budget, takes
     /// the RAM path exactly when that fits, covers the product, and keeps
     /// the convolution exact.
+    /// The wrap-around correction is planned where it pays and nowhere
+    /// else: the 4·10^7-digit decimal pair (4_210_527 coefficients) folds
+    /// its 16_223 coefficients past 2^22 points instead of taking 3·2^21;
+    /// one coefficient past a power of two or three times one is folded; a
+    /// product 19% past 2^23 (8·10^7 hexadecimal digits a side) is not,
+    /// since its short product would need more memory than the longer
+    /// transform saves; an operand longer than the transform, and the
+    /// 62-bit set, never fold.
+    #[test]
+    fn folding_is_planned_only_where_it_pays() {
+        let four = PrimeSet::Four50(crate::ntt50::Kernel::Scalar);
+        let three = PrimeSet::Three50(crate::ntt50::Kernel::Scalar);
+        let fold = |count: usize, longer: usize, set| {
+            let (s, f) = ram_shape_for(count, longer, set);
+            (s.len(), f)
+        };
+        assert_eq!(fold(4_210_527, 2_105_264, three), (1 << 22, 16_223));
+        assert_eq!(fold(4_210_527, 2_105_264, four), (1 << 22, 16_223));
+        for len in [1 << 10, 3 << 9, 1 << 16, 3 << 20] {
+            assert_eq!(fold(len + 1, len / 2 + 1, four), (len, 1), "{len}");
+        }
+        assert_eq!(fold(9_999_999, 5_000_000, three), (3 << 22, 0));
+        assert_eq!(fold((1 << 20) + 1, (1 << 20) + 1, four), (3 << 19, 0));
+        assert_eq!(
+            fold((1 << 20) + 1, 1 << 19, PrimeSet::Three62),
+            (3 << 19, 0)
+        );
+        // Below 2^10 points nothing folds.
+        assert_eq!(fold(513, 257, four), (768, 0));
+        // The plan carries it: its RAM counts the short product, and a
+        // pass folds it back before the CRT.
+        let r = Request {
+            primes: three,
+            ..Request::in_memory(2_105_264, 2_105_264, Radix::Decimal, false, 2, Force::Ntt)
+        };
+        let p = plan(&r).unwrap();
+        assert!(
+            matches!(p.algorithm, Algorithm::Ntt { folded: 16_223, .. }),
+            "{p:?}"
+        );
+        let names: Vec<&str> = p.passes.iter().map(|x| x.name.as_str()).collect();
+        let at = names.iter().position(|n| *n == WRAP_PASS).unwrap();
+        assert_eq!(names[at + 1], "CRT and carry");
+        assert!(names[at - 1].starts_with("inverse columns"));
+    }
+
     #[test]
     fn no_plan_exceeds_its_budget() {
         let mb = 1u64 << 20;
@@ -772,15 +906,19 @@ mod tests {
                     match plan(&r) {
                         Ok(p) => {
                             assert!(p.ram_bytes <= budget, "{limbs} {budget}: {p:?}");
-                            let shape = match p.algorithm {
-                                Algorithm::Ntt { shape } => shape,
+                            let (shape, folded) = match p.algorithm {
+                                Algorithm::Ntt { shape, folded } => (shape, folded),
                                 Algorithm::OutOfCore { shape, .. } => {
                                     assert!(p.scratch_bytes >= 8 * 4 * shape.len() as u64);
-                                    shape
+                                    (shape, 0)
                                 }
                                 other => panic!("{other:?}"),
                             };
-                            assert!(shape.len() >= limbs + limbs / 3);
+                            // What the transform does not cover wraps and is
+                            // folded back: a quarter of it at most, and the
+                            // operands fit it whole.
+                            assert_eq!(shape.len() + folded, shape.len().max(limbs + limbs / 3));
+                            assert!(4 * folded <= shape.len() && shape.len() >= limbs);
                             assert_eq!(shape.cols % shape.lanes, 0);
                             assert!(p.prime_set.exact_for((limbs / 3 + 1) as u64, radix));
                             assert!(p.prime_set.supports_len(shape.len()));

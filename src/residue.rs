@@ -374,6 +374,10 @@ impl<L: LimbSource + ?Sized> LimbSource for TapM61<'_, L> {
     fn peek_limb(&self, i: usize) -> u64 {
         self.inner.peek_limb(i)
     }
+
+    fn peek_limbs(&self, first: usize, out: &mut [u64]) {
+        self.inner.peek_limbs(first, out)
+    }
 }
 
 /// The residue of `limbs` (below 2^63, not fully reduced) modulo

@@ -88,6 +88,16 @@ pub trait LimbSource: Sync {
         self.fill_limbs(i, &mut x);
         x[0]
     }
+
+    /// Limbs `first..first + out.len()`, looked at rather than consumed
+    /// (as [`LimbSource::peek_limb`]): the wrap-around correction reads an
+    /// operand's top limbs a second time. Sources that count nothing read
+    /// them as [`LimbSource::fill_limbs`] does.
+    fn peek_limbs(&self, first: usize, out: &mut [u64]) {
+        for (i, o) in out.iter_mut().enumerate() {
+            *o = self.peek_limb(first + i);
+        }
+    }
 }
 
 impl LimbSource for [u64] {
@@ -96,11 +106,19 @@ impl LimbSource for [u64] {
         out[..have].copy_from_slice(&self[first..first + have]);
         out[have..].fill(0);
     }
+
+    fn peek_limbs(&self, first: usize, out: &mut [u64]) {
+        self.fill_limbs(first, out)
+    }
 }
 
 impl LimbSource for Vec<u64> {
     fn fill_limbs(&self, first: usize, out: &mut [u64]) {
         self.as_slice().fill_limbs(first, out)
+    }
+
+    fn peek_limbs(&self, first: usize, out: &mut [u64]) {
+        self.fill_limbs(first, out)
     }
 }
 

@@ -581,13 +581,48 @@ fn expected_transform_len(coefficients: usize, set: PrimeSet) -> usize {
     }
 }
 
-/// The NTT shape the planner gives a forced-NTT product of `la x lb` limbs.
-fn planned_shape(la: usize, lb: usize, radix: Radix) -> vastmul::fourstep::Shape {
-    let p = plan(&Request::in_memory(la, lb, radix, false, 2, Force::Ntt)).expect("plan");
-    match p.algorithm {
-        Algorithm::Ntt { shape } => shape,
+/// The NTT shape the planner gives a forced-NTT product of `la x lb` limbs
+/// on `set`, and the coefficients it folds back.
+fn planned_on(
+    la: usize,
+    lb: usize,
+    radix: Radix,
+    set: PrimeSet,
+) -> (vastmul::fourstep::Shape, usize) {
+    let mut r = Request::in_memory(la, lb, radix, false, 2, Force::Ntt);
+    r.primes = set;
+    match plan(&r).expect("plan").algorithm {
+        Algorithm::Ntt { shape, folded } => (shape, folded),
         other => panic!("{la}x{lb}: forced NTT planned as {other:?}"),
     }
+}
+
+/// Checks the transform the planner gives `la x lb` limbs on the preferred
+/// set: the shortest length covering every coefficient, or (50-bit sets
+/// only) a shorter one that still holds both operands and folds back what
+/// wraps, at most a quarter of its length, for less modelled cost and no
+/// more memory. One
+/// coefficient past a length of `2^k` or `3 * 2^k` points (from 2^10 on)
+/// that holds both operands is always folded back. Returns the shape.
+fn assert_planned_length(la: usize, lb: usize, radix: Radix) -> vastmul::fourstep::Shape {
+    let set = PrimeSet::preferred();
+    let coefficients = la + lb - 1;
+    let (shape, folded) = planned_on(la, lb, radix, set);
+    let cover = expected_transform_len(coefficients, set);
+    let ctx = format!("{la}x{lb} on {set:?}: {shape:?}, {folded} folded");
+    if folded == 0 {
+        assert_eq!(shape.len(), cover, "{ctx}");
+    } else {
+        assert!(set.balanced_digits(), "{ctx}");
+        assert_eq!(shape.len() + folded, coefficients, "{ctx}");
+        assert!(shape.len() < cover && shape.len() >= la.max(lb), "{ctx}");
+        assert!(4 * folded <= shape.len(), "{ctx}");
+    }
+    let below = coefficients - 1;
+    if set.balanced_digits() && below >= 1 << 10 && below >= la.max(lb) && set.supports_len(below) {
+        assert_eq!((shape.len(), folded), (below, 1), "{ctx}");
+    }
+    shape
 }
 
 /// Products with `la + lb - 1 = 2^k - 1, 2^k, 2^k + 1` coefficients: a
@@ -619,11 +654,7 @@ fn transform_length_boundaries_balanced_match_reference() {
             {
                 let la = coefficients.div_ceil(2).max(1);
                 let lb = coefficients + 1 - la;
-                assert_eq!(
-                    planned_shape(la, lb, radix).len(),
-                    expected_transform_len(coefficients, PrimeSet::preferred()),
-                    "{la}x{lb}"
-                );
+                assert_planned_length(la, lb, radix);
                 let a = rng.limbs(la, radix);
                 let b = rng.limbs(lb, radix);
                 for force in [Force::Ntt, Force::Auto] {
@@ -642,23 +673,19 @@ fn transform_length_boundaries_balanced_match_reference() {
 
 /// The same boundaries with one long and one short operand, which makes
 /// long transforms cheap to check: 2^20 and 2^20 + 1 coefficients in both
-/// radixes (decimal checked block by block), and 2^23 + 1 in binary, the
-/// first length (2^24 points) whose four-step split is no longer near the
-/// square root: its rows stay at the planner's maximum while the columns
-/// keep growing, so the rows are checked to be shorter than half the
-/// columns there.
+/// radixes (decimal checked block by block), and 2^24 + 1 in binary, whose
+/// transform (2^24 points, one coefficient folded back on the 50-bit sets)
+/// is the first whose four-step split is no longer near the square root:
+/// its rows stay at the planner's maximum while the columns keep growing,
+/// so the rows are checked to be shorter than half the columns there.
 #[test]
 fn transform_length_boundaries_long_by_short_match_reference() {
     let mut rng = Rng::new(seed(Radix::Binary, 110));
     let short = 41;
-    for coefficients in [1 << 20, (1 << 20) + 1, (1 << 23) + 1] {
+    for coefficients in [1 << 20, (1 << 20) + 1, (1 << 24) + 1] {
         let la = coefficients + 1 - short;
-        let shape = planned_shape(la, short, Radix::Binary);
-        assert_eq!(
-            shape.len(),
-            expected_transform_len(coefficients, PrimeSet::preferred())
-        );
-        if coefficients > 1 << 23 {
+        let shape = assert_planned_length(la, short, Radix::Binary);
+        if coefficients > 1 << 24 {
             assert!(
                 shape.rows < shape.cols / 2,
                 "{shape:?} is not the capped split"
@@ -790,12 +817,8 @@ fn planner_auto_choices_match_expectations() {
             assert_eq!(auto_plan(100, 0, radix, square), Algorithm::Zero);
             for (la, lb) in [(100_000, 100_000), (1_000_000, 1_000_000), (4096, 4096)] {
                 match auto_plan(la, lb, radix, square) {
-                    Algorithm::Ntt { shape } => {
-                        assert_eq!(
-                            shape.len(),
-                            expected_transform_len(la + lb - 1, PrimeSet::preferred()),
-                            "{la}x{lb}"
-                        )
+                    Algorithm::Ntt { .. } => {
+                        assert_planned_length(la, lb, radix);
                     }
                     other => panic!("{la}x{lb}: Auto planned {other:?}, expected the NTT"),
                 }
@@ -811,7 +834,10 @@ fn planner_auto_choices_match_expectations() {
             forced(100_000, 100_000, Force::Schoolbook),
             Algorithm::Schoolbook
         );
-        assert!(matches!(forced(1, 1, Force::Ntt), Algorithm::Ntt { shape } if shape.len() == 2));
+        assert!(matches!(
+            forced(1, 1, Force::Ntt),
+            Algorithm::Ntt { shape, folded: 0 } if shape.len() == 2
+        ));
     }
 }
 
@@ -869,6 +895,102 @@ fn every_prime_set_matches_reference() {
             for &set in &sets {
                 let got = multiply_on(a, b, radix, Force::Ntt, set);
                 let ctx = format!("{what} [{} {set:?}]", radix.name());
+                assert_well_formed(&got, radix, &ctx);
+                let value = match radix {
+                    Radix::Binary => binary_to_big(&got),
+                    Radix::Decimal => decimal_to_big(&got),
+                };
+                assert!(value == expected, "{ctx}: product differs from num-bigint");
+            }
+        }
+    }
+}
+
+/// Products a little longer than a transform, whose top coefficients wrap
+/// around and are folded back, on every prime set this CPU runs, against
+/// num-bigint: one coefficient over (the digits' carries only), 32 and 33
+/// over (short products of one and two column blocks), and 500 over (a
+/// short product of 1024 points, about the most the planner folds on 4096
+/// points before the short product's memory outweighs the saving);
+/// balanced and unbalanced pairs (the longer operand exactly the
+/// transform's length, so that every wrapped term involves its top limb,
+/// and the shorter one exactly the `T + 1` limbs the short product takes),
+/// squares, all-maximal limbs (all nines in decimal), a radix power plus
+/// one, and limbs at half the base (the balanced digits' carries at the
+/// wrap). For the 50-bit sets the plan is checked to fold exactly what was
+/// meant, so that the correction cannot go untested.
+#[test]
+fn wrapped_products_match_reference() {
+    use vastmul::engine::multiply_on;
+    for radix in RADIXES {
+        let mut rng = Rng::new(seed(radix, 950));
+        let n = 4096;
+        let mut cases: Vec<(String, Vec<u64>, Vec<u64>, usize)> = Vec::new();
+        for folded in [1usize, 32, 33, 500] {
+            let count = n + folded;
+            let la = count.div_ceil(2);
+            let lb = count + 1 - la;
+            cases.push((
+                format!("random {la}x{lb}"),
+                rng.limbs(la, radix),
+                rng.limbs(lb, radix),
+                folded,
+            ));
+            cases.push((
+                format!("unbalanced {n}x{}", folded + 1),
+                rng.limbs(n, radix),
+                rng.limbs(folded + 1, radix),
+                folded,
+            ));
+            cases.push((
+                format!("max {la}x{lb}"),
+                radix_power_minus_one(la, radix),
+                radix_power_minus_one(lb, radix),
+                folded,
+            ));
+            let h = radix.half_base();
+            cases.push((
+                format!("halves {n}x{}", folded + 1),
+                vec![h; n],
+                vec![h - 1; folded + 1],
+                folded,
+            ));
+        }
+        // Squares fold an odd count: 2 * la - 1 = n + folded.
+        for folded in [1usize, 33, 499] {
+            let la = (n + folded).div_ceil(2);
+            let a = rng.limbs(la, radix);
+            cases.push((format!("square {la}"), a.clone(), a, folded));
+            let m = radix_power_minus_one(la, radix);
+            cases.push((format!("square max {la}"), m.clone(), m, folded));
+        }
+        cases.push((
+            "B^4095+1 * B^501-1".into(),
+            radix_power_plus_one(n - 1),
+            radix_power_minus_one(501, radix),
+            // 4096 + 501 - 1 coefficients on a transform of 4096 points.
+            500,
+        ));
+        for (what, a, b, folded) in &cases {
+            let expected = to_big(a, radix) * to_big(b, radix);
+            for set in PrimeSet::all_supported() {
+                let ctx = format!("{what}, {folded} folded [{} {set:?}]", radix.name());
+                let (shape, planned) = planned_on(
+                    a.len(),
+                    b.len(),
+                    radix,
+                    set.fitted(a.len().min(b.len()) as u64, radix),
+                );
+                if set.balanced_digits() {
+                    assert_eq!(
+                        (shape.len(), planned),
+                        (a.len() + b.len() - 1 - folded, *folded),
+                        "{ctx}"
+                    );
+                } else {
+                    assert_eq!(planned, 0, "{ctx}: the 62-bit set folds nothing");
+                }
+                let got = multiply_on(a, b, radix, Force::Ntt, set);
                 assert_well_formed(&got, radix, &ctx);
                 let value = match radix {
                     Radix::Binary => binary_to_big(&got),

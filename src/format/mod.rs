@@ -68,6 +68,10 @@ impl crate::storage::LimbSource for Operand {
     fn fill_limbs(&self, first: usize, out: &mut [u64]) {
         self.read_limbs(first, out)
     }
+
+    fn peek_limbs(&self, first: usize, out: &mut [u64]) {
+        self.read_limbs(first, out)
+    }
 }
 
 /// An operand read without keeping its pages resident: each read is
@@ -85,6 +89,10 @@ impl crate::storage::LimbSource for Released<'_> {
 
     fn prefetch_limbs(&self, first: usize, n: usize) {
         self.0.prefetch_limbs(first, n);
+    }
+
+    fn peek_limbs(&self, first: usize, out: &mut [u64]) {
+        self.fill_limbs(first, out)
     }
 }
 
