@@ -853,7 +853,6 @@ fn planner_auto_choices_match_expectations() {
 /// lacks is named as skipped.
 #[test]
 fn every_prime_set_matches_reference() {
-    use vastmul::engine::multiply_on;
     use vastmul::ntt50::Kernel;
     let sets = PrimeSet::all_supported();
     for k in Kernel::ALL {
@@ -893,14 +892,8 @@ fn every_prime_set_matches_reference() {
         for (what, a, b) in &cases {
             let expected = to_big(a, radix) * to_big(b, radix);
             for &set in &sets {
-                let got = multiply_on(a, b, radix, Force::Ntt, set);
                 let ctx = format!("{what} [{} {set:?}]", radix.name());
-                assert_well_formed(&got, radix, &ctx);
-                let value = match radix {
-                    Radix::Binary => binary_to_big(&got),
-                    Radix::Decimal => decimal_to_big(&got),
-                };
-                assert!(value == expected, "{ctx}: product differs from num-bigint");
+                assert_set_matches(a, b, radix, set, &expected, &ctx);
             }
         }
     }
@@ -921,7 +914,6 @@ fn every_prime_set_matches_reference() {
 /// meant, so that the correction cannot go untested.
 #[test]
 fn wrapped_products_match_reference() {
-    use vastmul::engine::multiply_on;
     for radix in RADIXES {
         let mut rng = Rng::new(seed(radix, 950));
         let n = 4096;
@@ -990,16 +982,29 @@ fn wrapped_products_match_reference() {
                 } else {
                     assert_eq!(planned, 0, "{ctx}: the 62-bit set folds nothing");
                 }
-                let got = multiply_on(a, b, radix, Force::Ntt, set);
-                assert_well_formed(&got, radix, &ctx);
-                let value = match radix {
-                    Radix::Binary => binary_to_big(&got),
-                    Radix::Decimal => decimal_to_big(&got),
-                };
-                assert!(value == expected, "{ctx}: product differs from num-bigint");
+                assert_set_matches(a, b, radix, set, &expected, &ctx);
             }
         }
     }
+}
+
+/// Multiplies `a` by `b` with the NTT on prime set `set` and checks the
+/// product's form and its value against `expected` (num-bigint's).
+fn assert_set_matches(
+    a: &[u64],
+    b: &[u64],
+    radix: Radix,
+    set: PrimeSet,
+    expected: &BigUint,
+    ctx: &str,
+) {
+    let got = vastmul::engine::multiply_on(a, b, radix, Force::Ntt, set);
+    assert_well_formed(&got, radix, ctx);
+    let value = match radix {
+        Radix::Binary => binary_to_big(&got),
+        Radix::Decimal => decimal_to_big(&got),
+    };
+    assert!(&value == expected, "{ctx}: product differs from num-bigint");
 }
 
 /// A forced path is the path planned: VASTMUL_KERNEL (as the kernel test
