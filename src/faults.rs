@@ -96,8 +96,13 @@ pub struct FaultySpace<'a> {
 }
 
 impl Space for FaultySpace<'_> {
-    fn store(&self, name: &str, len: usize) -> Result<(Box<dyn Store>, bool)> {
-        let (inner, reused) = self.inner.store(name, len)?;
+    fn store(
+        &self,
+        name: &str,
+        len: usize,
+        width: crate::packing::WordWidth,
+    ) -> Result<(Box<dyn Store>, bool)> {
+        let (inner, reused) = self.inner.store(name, len, width)?;
         Ok((
             Box::new(FaultyStore {
                 inner,

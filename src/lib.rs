@@ -32,6 +32,7 @@ pub mod info;
 pub mod interrupt;
 pub mod ooc;
 pub mod output;
+pub mod packing;
 pub mod radix;
 pub mod rng;
 

@@ -22,6 +22,7 @@
 use crate::carry::{self, U192};
 use crate::engine::{Product, Timer};
 use crate::fourstep::{BlockLog, FourStep, Shape};
+use crate::packing::WordWidth;
 use crate::plan::Plan;
 use crate::progress::METER;
 use crate::state::{Journal, Record};
@@ -67,9 +68,9 @@ pub const SYNC_INTERVAL: std::time::Duration = std::time::Duration::from_secs(60
 
 /// Where an out-of-core run keeps its stores.
 pub trait Space: Sync {
-    /// Opens store `name` of `len` words, reusing one left by an earlier
-    /// run of the same state; says whether it was reused.
-    fn store(&self, name: &str, len: usize) -> Result<(Box<dyn Store>, bool)>;
+    /// Opens store `name` of `len` words of `width`, reusing one left by
+    /// an earlier run of the same state; says whether it was reused.
+    fn store(&self, name: &str, len: usize, width: WordWidth) -> Result<(Box<dyn Store>, bool)>;
 }
 
 /// Journaled blocks, by (step, part): block index to hash.
@@ -166,16 +167,18 @@ impl<'a> OutOfCore<'a> {
     ) -> Result<(Self, Resumed)> {
         let n = shape.len();
         let mut reused = true;
-        let mut open = |name: &str, len: usize| -> Result<Box<dyn Store>> {
-            let (s, was) = space.store(name, len)?;
+        let mut open = |name: &str, len: usize, width| -> Result<Box<dyn Store>> {
+            let (s, was) = space.store(name, len, width)?;
             reused &= was;
             Ok(s)
         };
+        // `s` ends up holding the product's limbs: full words.
+        let residues = crate::plan::residue_width(plan.prime_set, shape);
         let a = (0..plan.prime_set.count())
-            .map(|k| open(&format!("a{k}"), n))
+            .map(|k| open(&format!("a{k}"), n, residues))
             .collect::<Result<Vec<_>>>()?;
-        let s = open("s", n.max(plan.product_limbs))?;
-        let p = open("p", n)?;
+        let s = open("s", n.max(plan.product_limbs), WordWidth::Full)?;
+        let p = open("p", n, residues)?;
         let mut done: Done = HashMap::new();
         for r in records {
             done.entry((r.step, r.part))

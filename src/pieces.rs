@@ -169,7 +169,11 @@ where
     let short = read_all(short, ls);
     let fs = shape.map(|s| FourStep::new(s, plan.prime_set, plan.radix));
     let mut sink = if product_on_disk {
-        Sink::Disk(FileStore::create(&scratch_path(dir, "product"), total)?)
+        Sink::Disk(FileStore::create(
+            &scratch_path(dir, "product"),
+            total,
+            crate::packing::WordWidth::Full,
+        )?)
     } else {
         Sink::Ram(WordBuf::zeroed(total))
     };

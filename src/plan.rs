@@ -4,6 +4,7 @@
 //! with a run's state. The executor only takes a `&Plan`.
 
 use crate::fourstep::Shape;
+use crate::packing::WordWidth;
 use crate::primeset::PrimeSet;
 use crate::radix::Radix;
 use crate::{Error, Result};
@@ -452,7 +453,7 @@ pub fn plan(req: &Request) -> Result<Plan> {
             folded,
         };
         plan.ram_bytes = in_ram;
-        plan.passes = ntt_passes(req, ram_shape, folded);
+        plan.passes = ntt_passes(req, ram_shape, folded, WordWidth::Full);
         return Ok(plan);
     }
     plan_out_of_core(req, plan, coefficients)
@@ -619,16 +620,32 @@ pub fn pieces_pass_name(count: usize, piece: usize, short: usize) -> String {
     format!("{count} pieces of {piece} x {short} limbs")
 }
 
+/// How the out-of-core residue stores (one per prime, and the row pass's
+/// output) keep their words: packed to 52 bits on the 50-bit sets, whose
+/// residues stay below `4p < 2^52`, where every block's segments are whole
+/// pairs of words (an even number of lanes), so that no two threads write
+/// the same byte; full words otherwise.
+pub fn residue_width(set: PrimeSet, shape: Shape) -> WordWidth {
+    if set.balanced_digits() && shape.lanes.is_multiple_of(2) && shape.cols.is_multiple_of(2) {
+        WordWidth::Packed52
+    } else {
+        WordWidth::Full
+    }
+}
+
 /// The passes of the NTT path and the bytes each moves (through scratch
-/// files out of core, through RAM otherwise).
-fn ntt_passes(req: &Request, shape: Shape, folded: usize) -> Vec<Pass> {
+/// files out of core, through RAM otherwise). `residues` is how the
+/// residue stores keep their words; B's column transforms and the limbs
+/// are full words.
+fn ntt_passes(req: &Request, shape: Shape, folded: usize, residues: WordWidth) -> Vec<Pass> {
     let n8 = 8 * shape.len() as u64;
+    let nr = residues.bytes(shape.len() as u64);
     let p8 = 8 * (req.a_limbs + req.b_limbs) as u64;
     let count = req.primes.count();
     let mut passes = vec![Pass {
         name: columns_of_a_name(count),
         read_bytes: req.input_bytes / if req.square { 1 } else { 2 },
-        write_bytes: count as u64 * n8,
+        write_bytes: count as u64 * nr,
     }];
     for k in 0..count {
         if !req.square {
@@ -640,13 +657,13 @@ fn ntt_passes(req: &Request, shape: Shape, folded: usize) -> Vec<Pass> {
         }
         passes.push(Pass {
             name: format!("rows and pointwise product, prime {k}"),
-            read_bytes: if req.square { n8 } else { 2 * n8 },
-            write_bytes: n8,
+            read_bytes: if req.square { nr } else { nr + n8 },
+            write_bytes: nr,
         });
         passes.push(Pass {
             name: format!("inverse columns, prime {k}"),
-            read_bytes: n8,
-            write_bytes: n8,
+            read_bytes: nr,
+            write_bytes: nr,
         });
     }
     if folded > 0 {
@@ -658,7 +675,7 @@ fn ntt_passes(req: &Request, shape: Shape, folded: usize) -> Vec<Pass> {
     }
     passes.push(Pass {
         name: "CRT and carry".into(),
-        read_bytes: count as u64 * 8 * (req.a_limbs + req.b_limbs - 1) as u64,
+        read_bytes: count as u64 * residues.bytes((req.a_limbs + req.b_limbs - 1) as u64),
         write_bytes: p8,
     });
     passes.push(Pass {
@@ -688,9 +705,15 @@ fn plan_out_of_core(req: &Request, mut plan: Plan, coefficients: usize) -> Resul
     let input = |shape: Shape| {
         (shape.rows as u64 * (TEXT_BYTES_PER_LIMB * shape.lanes as u64 + 8192)).min(req.input_bytes)
     };
+    // A packed store's buffer per thread, and one for the carry pass's.
+    let packing = |shape: Shape| match residue_width(req.primes, shape) {
+        WordWidth::Packed52 => crate::scratch::PACK_BUFFER_BYTES,
+        WordWidth::Full => 0,
+    };
     let ram = |shape: Shape, window: usize| {
         FIXED_RAM
             + window_ram(window, req.primes)
+            + (threads + 1) * packing(shape)
             + threads * (per_thread_ram(shape) + input(shape))
     };
     loop {
@@ -715,8 +738,10 @@ fn plan_out_of_core(req: &Request, mut plan: Plan, coefficients: usize) -> Resul
     // A residue store per prime, one for B and then the product's limbs,
     // and one for the row pass's output (so that no pass writes where it
     // reads, and an interrupted block can always be redone).
-    plan.scratch_bytes = 8 * (req.primes.count() as u64 * n_words + spare_words + n_words);
-    plan.passes = ntt_passes(req, shape, 0);
+    let residues = residue_width(req.primes, shape);
+    plan.scratch_bytes =
+        (req.primes.count() as u64 + 1) * residues.bytes(n_words) + 8 * spare_words;
+    plan.passes = ntt_passes(req, shape, 0, residues);
     Ok(plan)
 }
 
@@ -787,8 +812,15 @@ mod tests {
         let o4 = plan(&r).unwrap();
         r.primes = PrimeSet::Three62;
         let o3 = plan(&r).unwrap();
-        assert!(matches!(o4.algorithm, Algorithm::OutOfCore { .. }));
-        assert_eq!(o4.scratch_bytes - o3.scratch_bytes, 8 * n);
+        let Algorithm::OutOfCore { shape, .. } = o4.algorithm else {
+            panic!("{o4:?}");
+        };
+        // Four residue stores and the row pass's, packed to 52 bits on the
+        // 50-bit set, and one of full words for B and the limbs.
+        assert_eq!(residue_width(four, shape), WordWidth::Packed52);
+        assert_eq!(residue_width(PrimeSet::Three62, shape), WordWidth::Full);
+        assert_eq!(o4.scratch_bytes, 5 * 13 * n / 2 + 8 * n);
+        assert_eq!(o3.scratch_bytes, 4 * 8 * n + 8 * n);
         // One limb fewer in the shorter operand and three primes suffice:
         // the same stores as the 62-bit set, on the same shape.
         let mut r = req(1 << 23, 8_385_533);

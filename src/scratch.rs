@@ -10,8 +10,10 @@
 //! Words are stored in native byte order: scratch files belong to one run
 //! on one machine.
 
+use crate::packing::{self, WordWidth, PAIR_BYTES};
 use crate::storage::Store;
 use crate::{Error, Result};
+use std::cell::RefCell;
 use std::fs::{File, OpenOptions};
 use std::os::unix::fs::FileExt;
 use std::path::{Path, PathBuf};
@@ -21,6 +23,7 @@ pub struct FileStore {
     file: File,
     path: PathBuf,
     len: usize,
+    width: WordWidth,
     /// Kept when dropped: part of a run's resumable state.
     keep: bool,
 }
@@ -38,8 +41,8 @@ fn as_bytes_mut(words: &mut [u64]) -> &mut [u8] {
 
 impl FileStore {
     /// Creates and preallocates `path` (which must not exist) for `len`
-    /// words.
-    pub fn create(path: &Path, len: usize) -> Result<Self> {
+    /// words of `width`.
+    pub fn create(path: &Path, len: usize, width: WordWidth) -> Result<Self> {
         let file = OpenOptions::new()
             .read(true)
             .write(true)
@@ -50,19 +53,21 @@ impl FileStore {
             file,
             path: path.to_path_buf(),
             len,
+            width,
             keep: false,
         };
-        preallocate(&store.file, (len * 8) as u64).map_err(|e| scratch_error(path, e))?;
+        preallocate(&store.file, width.bytes(len as u64)).map_err(|e| scratch_error(path, e))?;
         Ok(store)
     }
 
-    /// Opens `path` as a store of `len` words that outlives this process:
-    /// an existing file of exactly that size is reused (its words are what
-    /// an earlier run left; the journal says which to trust), anything else
-    /// is replaced by a fresh preallocated file. Returns the store and
-    /// whether an existing file was reused. Never removed when dropped.
-    pub fn open_kept(path: &Path, len: usize) -> Result<(Self, bool)> {
-        let bytes = (len * 8) as u64;
+    /// Opens `path` as a store of `len` words of `width` that outlives
+    /// this process: an existing file of exactly that size is reused (its
+    /// words are what an earlier run left; the journal says which to
+    /// trust), anything else is replaced by a fresh preallocated file.
+    /// Returns the store and whether an existing file was reused. Never
+    /// removed when dropped.
+    pub fn open_kept(path: &Path, len: usize, width: WordWidth) -> Result<(Self, bool)> {
+        let bytes = width.bytes(len as u64);
         if let Ok(meta) = std::fs::metadata(path) {
             if meta.is_file() && meta.len() == bytes {
                 let file = OpenOptions::new()
@@ -74,13 +79,14 @@ impl FileStore {
                     file,
                     path: path.to_path_buf(),
                     len,
+                    width,
                     keep: true,
                 };
                 return Ok((store, true));
             }
             std::fs::remove_file(path).map_err(|e| scratch_error(path, e))?;
         }
-        let mut store = FileStore::create(path, len)?;
+        let mut store = FileStore::create(path, len, width)?;
         store.keep = true;
         Ok((store, false))
     }
@@ -96,6 +102,125 @@ impl Drop for FileStore {
         if !self.keep {
             let _ = std::fs::remove_file(&self.path);
         }
+    }
+}
+
+/// Pairs packed or unpacked per system call: bounds the per-thread buffer
+/// (about 416 KiB) whatever the length of a read or write.
+const PACK_CHUNK_PAIRS: usize = 1 << 15;
+
+/// Bytes of the per-thread buffer of packed stores, for the planner.
+pub const PACK_BUFFER_BYTES: u64 = (PACK_CHUNK_PAIRS * PAIR_BYTES + 16) as u64;
+
+thread_local! {
+    static PACKED: RefCell<Vec<u8>> = const { RefCell::new(Vec::new()) };
+}
+
+impl FileStore {
+    /// Reads pair `pair` (words `2 * pair` and `2 * pair + 1`).
+    fn read_pair(&self, pair: usize) -> Result<[u64; 2]> {
+        let mut b = [0u8; PAIR_BYTES];
+        self.file
+            .read_exact_at(&mut b, (pair * PAIR_BYTES) as u64)
+            .map_err(|e| Error::io(&self.path, e))?;
+        let mut w = [0u64; 2];
+        packing::unpack(&b, &mut w);
+        Ok(w)
+    }
+
+    fn write_pair(&self, pair: usize, w: [u64; 2]) -> Result<()> {
+        let mut b = [0u8; PAIR_BYTES];
+        self.pack_checked(&w, &mut b, 2 * pair)?;
+        self.file
+            .write_all_at(&b, (pair * PAIR_BYTES) as u64)
+            .map_err(|e| scratch_error(&self.path, e))
+    }
+
+    fn pack_checked(&self, words: &[u64], out: &mut [u8], first: usize) -> Result<()> {
+        if packing::pack(words, out) {
+            return Ok(());
+        }
+        let at = first
+            + words
+                .iter()
+                .position(|&w| w >> packing::PACKED_BITS != 0)
+                .unwrap_or(0);
+        Err(Error::verify(
+            format!(
+                "{}: word {at} is 2^52 or more and cannot be stored packed: a residue broke its bound",
+                self.path.display()
+            ),
+            "this is a bug in vastmul; rerun with VASTMUL_KERNEL=scalar and report both runs",
+        ))
+    }
+
+    /// Words `start..start + out.len()` of a packed store. A word that
+    /// shares its pair with one outside the range is read with its pair.
+    fn read_packed(&self, mut start: usize, mut out: &mut [u64]) -> Result<()> {
+        if out.is_empty() {
+            return Ok(());
+        }
+        if start % 2 == 1 {
+            out[0] = self.read_pair(start / 2)?[1];
+            start += 1;
+            out = &mut out[1..];
+        }
+        let whole = out.len() & !1;
+        let (body, tail) = out.split_at_mut(whole);
+        PACKED.with_borrow_mut(|buf| -> Result<()> {
+            for (i, chunk) in body.chunks_mut(2 * PACK_CHUNK_PAIRS).enumerate() {
+                let pair = start / 2 + i * PACK_CHUNK_PAIRS;
+                let bytes = chunk.len() / 2 * PAIR_BYTES;
+                buf.resize(bytes.max(buf.len()), 0);
+                self.file
+                    .read_exact_at(&mut buf[..bytes], (pair * PAIR_BYTES) as u64)
+                    .map_err(|e| Error::io(&self.path, e))?;
+                packing::unpack(&buf[..], chunk);
+            }
+            Ok(())
+        })?;
+        if let Some(last) = tail.first_mut() {
+            *last = self.read_pair((start + whole) / 2)?[0];
+        }
+        Ok(())
+    }
+
+    /// Writes `data` at word `start` of a packed store. A word that shares
+    /// its pair with one outside the range is written by reading the pair
+    /// and writing it back, so such edges must not be written by two
+    /// threads at once; the out-of-core passes write whole pairs only.
+    fn write_packed(&self, mut start: usize, mut data: &[u64]) -> Result<()> {
+        if data.is_empty() {
+            return Ok(());
+        }
+        if start % 2 == 1 {
+            let mut w = self.read_pair(start / 2)?;
+            w[1] = data[0];
+            self.write_pair(start / 2, w)?;
+            start += 1;
+            data = &data[1..];
+        }
+        let whole = data.len() & !1;
+        PACKED.with_borrow_mut(|buf| -> Result<()> {
+            for (i, chunk) in data[..whole].chunks(2 * PACK_CHUNK_PAIRS).enumerate() {
+                let first = start + i * 2 * PACK_CHUNK_PAIRS;
+                let bytes = chunk.len() / 2 * PAIR_BYTES;
+                // Room for the packer's 16-byte stores past the last pair.
+                buf.resize((bytes + 16).max(buf.len()), 0);
+                self.pack_checked(chunk, &mut buf[..], first)?;
+                self.file
+                    .write_all_at(&buf[..bytes], (first / 2 * PAIR_BYTES) as u64)
+                    .map_err(|e| scratch_error(&self.path, e))?;
+            }
+            Ok(())
+        })?;
+        if let Some(&last) = data.get(whole) {
+            let pair = (start + whole) / 2;
+            let mut w = self.read_pair(pair)?;
+            w[0] = last;
+            self.write_pair(pair, w)?;
+        }
+        Ok(())
     }
 }
 
@@ -148,16 +273,24 @@ impl Store for FileStore {
 
     fn read(&self, start: usize, out: &mut [u64]) -> Result<()> {
         debug_assert!(start + out.len() <= self.len);
-        self.file
-            .read_exact_at(as_bytes_mut(out), (start * 8) as u64)
-            .map_err(|e| Error::io(&self.path, e))
+        match self.width {
+            WordWidth::Full => self
+                .file
+                .read_exact_at(as_bytes_mut(out), (start * 8) as u64)
+                .map_err(|e| Error::io(&self.path, e)),
+            WordWidth::Packed52 => self.read_packed(start, out),
+        }
     }
 
     fn write(&self, start: usize, data: &[u64]) -> Result<()> {
         debug_assert!(start + data.len() <= self.len);
-        self.file
-            .write_all_at(as_bytes(data), (start * 8) as u64)
-            .map_err(|e| scratch_error(&self.path, e))
+        match self.width {
+            WordWidth::Full => self
+                .file
+                .write_all_at(as_bytes(data), (start * 8) as u64)
+                .map_err(|e| scratch_error(&self.path, e)),
+            WordWidth::Packed52 => self.write_packed(start, data),
+        }
     }
 
     fn sync(&self) -> Result<()> {
@@ -222,12 +355,13 @@ impl FileSpace {
 }
 
 impl crate::ooc::Space for FileSpace {
-    fn store(&self, name: &str, len: usize) -> Result<(Box<dyn Store>, bool)> {
+    fn store(&self, name: &str, len: usize, width: WordWidth) -> Result<(Box<dyn Store>, bool)> {
         if self.kept {
-            let (s, reused) = FileStore::open_kept(&self.dir.join(name), len)?;
+            let (s, reused) = FileStore::open_kept(&self.dir.join(name), len, width)?;
             Ok((Box::new(s), reused))
         } else {
-            let s = FileStore::create(&crate::engine::scratch_path(&self.dir, name), len)?;
+            let path = crate::engine::scratch_path(&self.dir, name);
+            let s = FileStore::create(&path, len, width)?;
             Ok((Box::new(s), false))
         }
     }
@@ -262,18 +396,78 @@ mod tests {
         let dir = tempfile::tempdir().unwrap();
         let path = dir.path().join("s.bin");
         {
-            let s = FileStore::create(&path, 1000).unwrap();
+            let s = FileStore::create(&path, 1000, WordWidth::Full).unwrap();
             assert_eq!(std::fs::metadata(&path).unwrap().len(), 8000);
             s.write(10, &[1, 2, u64::MAX]).unwrap();
             let mut out = [7u64; 5];
             s.read(9, &mut out).unwrap();
             assert_eq!(out, [0, 1, 2, u64::MAX, 0]);
             assert!(
-                FileStore::create(&path, 10).is_err(),
+                FileStore::create(&path, 10, WordWidth::Full).is_err(),
                 "never reuses an existing file"
             );
         }
         assert!(!path.exists());
+    }
+
+    /// A packed store against a plain array: ranges with odd and even
+    /// ends, inside one pair, across the chunk size, and the last pair.
+    #[test]
+    fn packed_store_matches_a_plain_array() {
+        let dir = tempfile::tempdir().unwrap();
+        let path = dir.path().join("p.bin");
+        let len = 2 * PACK_CHUNK_PAIRS + 101;
+        let s = FileStore::create(&path, len, WordWidth::Packed52).unwrap();
+        assert_eq!(
+            std::fs::metadata(&path).unwrap().len(),
+            (len as u64).div_ceil(2) * PAIR_BYTES as u64
+        );
+        let mut model = vec![0u64; len];
+        let mut rng = crate::rng::Rng::new(7);
+        let top = (1u64 << packing::PACKED_BITS) - 1;
+        let ranges = [
+            (0, 2),
+            (1, 1),
+            (3, 4),
+            (4, 7),
+            (10, 2 * PACK_CHUNK_PAIRS + 5),
+            (len - 1, 1),
+            (len - 4, 4),
+            (0, len),
+            (2 * PACK_CHUNK_PAIRS - 3, 9),
+        ];
+        for round in 0..3 {
+            for &(start, n) in &ranges {
+                let data: Vec<u64> = (0..n)
+                    .map(|i| match (i + round) % 5 {
+                        0 => top,
+                        1 => 0,
+                        _ => rng.next_u64() & top,
+                    })
+                    .collect();
+                s.write(start, &data).unwrap();
+                model[start..start + n].copy_from_slice(&data);
+                for &(rs, rn) in &ranges {
+                    let mut out = vec![u64::MAX; rn];
+                    s.read(rs, &mut out).unwrap();
+                    assert_eq!(out, model[rs..rs + rn], "read {rs}+{rn} after {start}+{n}");
+                }
+            }
+        }
+        // A word that does not fit is refused, naming the file and word.
+        let e = s.write(6, &[1, 1 << 52]).unwrap_err();
+        assert!(matches!(e, Error::Verify { .. }), "{e}");
+        assert!(e.to_string().contains("word 7"), "{e}");
+        drop(s);
+        // A kept store of the packed size is reused; of the full size, not.
+        let kept = dir.path().join("k.bin");
+        drop(FileStore::open_kept(&kept, 10, WordWidth::Packed52).unwrap());
+        assert!(
+            FileStore::open_kept(&kept, 10, WordWidth::Packed52)
+                .unwrap()
+                .1
+        );
+        assert!(!FileStore::open_kept(&kept, 10, WordWidth::Full).unwrap().1);
     }
 
     #[test]

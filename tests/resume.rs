@@ -18,6 +18,7 @@ use vastmul::format::{write_operand, Format};
 use vastmul::fourstep::Shape;
 use vastmul::job::{multiply_files, MulOptions};
 use vastmul::ooc::{step, OutOfCore};
+use vastmul::packing::WordWidth;
 use vastmul::plan::{plan, Algorithm, Force, Request};
 use vastmul::scratch::FileSpace;
 use vastmul::state::{Record, StateDir};
@@ -145,19 +146,22 @@ fn rerun(o: &MulOptions, fx: &Fixture) -> vastmul::job::MulReport {
 }
 
 /// Where the block of `r` lives: its scratch file and a byte inside it.
-fn block_location(r: &Record, shape: Shape, window: usize) -> (String, u64) {
-    let column_block = |b: u64| b * shape.lanes as u64 * 8;
+/// The residue stores `a*` and `p` may hold packed words (`width`); the
+/// carry store `s` always holds whole words.
+fn block_location(r: &Record, shape: Shape, window: usize, width: WordWidth) -> (String, u64) {
+    let column_block = |b: u64, w: WordWidth| w.bytes(b * shape.lanes as u64);
+    let full = WordWidth::Full;
     match r.step {
-        step::COLUMNS_A => (format!("a{}", r.part), column_block(r.block)),
-        step::CARRY => ("s".into(), r.block * window as u64 * 8),
+        step::COLUMNS_A => (format!("a{}", r.part), column_block(r.block, width)),
+        step::CARRY => ("s".into(), full.bytes(r.block * window as u64)),
         s => {
             let k = (s as usize - 1) / 3;
             if s == step::columns_b(k) {
-                ("s".into(), column_block(r.block))
+                ("s".into(), column_block(r.block, full))
             } else if s == step::rows(k) {
-                ("p".into(), r.block * shape.cols as u64 * 8)
+                ("p".into(), width.bytes(r.block * shape.cols as u64))
             } else {
-                (format!("a{k}"), column_block(r.block))
+                (format!("a{k}"), column_block(r.block, width))
             }
         }
     }
@@ -171,6 +175,7 @@ fn a_flipped_byte_in_a_completed_block_is_found_and_redone() {
     let Algorithm::OutOfCore { shape, window } = p.algorithm else {
         panic!("{:?}", p.algorithm)
     };
+    let width = vastmul::plan::residue_width(p.prime_set, shape);
     let mut steps = std::collections::BTreeSet::new();
     for fraction in [0.05, 0.2, 0.35, 0.5, 0.65, 0.8, 0.9, 0.97] {
         interrupted(&o, fraction);
@@ -178,7 +183,7 @@ fn a_flipped_byte_in_a_completed_block_is_found_and_redone() {
         let (_, load) = state_of(&o).journal().unwrap();
         let last = *load.records.last().expect("some block done");
         steps.insert(last.step);
-        let (file, offset) = block_location(&last, shape, window);
+        let (file, offset) = block_location(&last, shape, window, width);
         let path = state_of(&o).file(&file);
         let mut bytes = std::fs::read(&path).unwrap();
         bytes[offset as usize + 3] ^= 0x40;
