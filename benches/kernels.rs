@@ -1,5 +1,6 @@
 //! Kernel micro-benchmarks: in-cache transforms (single vector and lanes),
-//! the row twiddle, the CRT and the decimal carry split.
+//! the row twiddle, the CRT, the decimal carry split and the packing of
+//! residue stores.
 //!
 //! `cargo bench --bench kernels` (criterion). Divide a transform's time by
 //! `len/2 * log2(len)` for the cost of one butterfly.
@@ -140,9 +141,31 @@ fn crt50(c: &mut Criterion) {
     g.finish();
 }
 
+/// Packing 52-bit residues for the out-of-core stores, against a plain
+/// copy of the same words: what a packed store adds per word.
+fn packing(c: &mut Criterion) {
+    use vastmul::packing::{pack, unpack, PAIR_BYTES};
+    let n = 1usize << 15;
+    let w = words(n, 1 << 52);
+    let mut bytes = vec![0u8; n / 2 * PAIR_BYTES];
+    let mut back = vec![0u64; n];
+    let mut g = c.benchmark_group("packing");
+    g.throughput(Throughput::Elements(n as u64));
+    g.bench_with_input(BenchmarkId::new("pack", n), &n, |bch, _| {
+        bch.iter(|| pack(black_box(&w), black_box(&mut bytes)))
+    });
+    g.bench_with_input(BenchmarkId::new("unpack", n), &n, |bch, _| {
+        bch.iter(|| unpack(black_box(&bytes), black_box(&mut back)))
+    });
+    g.bench_with_input(BenchmarkId::new("copy", n), &n, |bch, _| {
+        bch.iter(|| back.copy_from_slice(black_box(&w)))
+    });
+    g.finish();
+}
+
 criterion_group! {
     name = benches;
     config = Criterion::default().sample_size(20).measurement_time(std::time::Duration::from_secs(2));
-    targets = transforms, transforms50, twiddle50, crt50
+    targets = transforms, transforms50, twiddle50, crt50, packing
 }
 criterion_main!(benches);

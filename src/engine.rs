@@ -12,7 +12,7 @@ use crate::radix::Radix;
 use crate::schoolbook;
 use crate::scratch::FileSpace;
 pub use crate::storage::LimbSource;
-use crate::storage::{RamStore, Store, WordBuf};
+use crate::storage::{Discarding, RamStore, Store, WordBuf};
 pub use crate::streamed::StreamedProduct;
 use crate::Result;
 use rayon::prelude::*;
@@ -334,6 +334,9 @@ pub enum Product {
         store: Box<dyn Store>,
         /// Significant limbs.
         len: usize,
+        /// Scratch still being given back; waited for before the product
+        /// counts as written.
+        discarding: Discarding,
     },
 }
 

@@ -747,7 +747,7 @@ pub fn multiply_files(opts: &MulOptions) -> Result<MulReport> {
         Product::Ram(limbs) => limbs.last().copied().unwrap_or(0),
         // Not made yet: read once the product is written.
         Product::Streamed(_) => 0,
-        Product::Disk { store, len } => {
+        Product::Disk { store, len, .. } => {
             let mut top = [0u64];
             if *len > 0 {
                 store.read(len - 1, &mut top).map_err(|e| match &state {
@@ -778,7 +778,7 @@ pub fn multiply_files(opts: &MulOptions) -> Result<MulReport> {
             let layout = p.layout().expect("a streamed product is laid out");
             write_text_file_rising(out.file(), out_format, radix, negative, layout, &feed)
         }
-        Product::Disk { store, len } => {
+        Product::Disk { store, len, .. } => {
             let feed = StoreFeed {
                 store: store.as_ref(),
                 tap: &tap,
@@ -820,6 +820,14 @@ pub fn multiply_files(opts: &MulOptions) -> Result<MulReport> {
         }
     })?;
     METER.end();
+    // The scratch given back while the product was written: a failure
+    // there fails the run like any other, before the product appears.
+    if let Product::Disk { discarding, .. } = &mut product {
+        discarding.wait().map_err(|e| match &state {
+            Some(st) => with_state_note(e, &st.dir, "write the product: all computing done"),
+            None => e,
+        })?;
+    }
     let (top, carry_seconds) = match &product {
         Product::Streamed(p) => {
             // The writer stops at the top limb of the layout; the carry
@@ -1029,7 +1037,7 @@ fn tamper(product: &mut Product, negative: &mut bool, t: Tamper) -> Result<()> {
             grown[len] = 1;
             *w = grown;
         }
-        (Product::Disk { store, len }, t) => {
+        (Product::Disk { store, len, .. }, t) => {
             let mut x = [0u64; 2];
             match t {
                 Tamper::ChangeLimb(f) => {

@@ -26,7 +26,7 @@ use crate::packing::WordWidth;
 use crate::plan::Plan;
 use crate::progress::METER;
 use crate::state::{Journal, Record};
-use crate::storage::{words_as_bytes, LimbSource, Store};
+use crate::storage::{words_as_bytes, Discarding, LimbSource, Store};
 use crate::Result;
 use std::collections::HashMap;
 use std::sync::Mutex;
@@ -493,7 +493,17 @@ impl<'a> OutOfCore<'a> {
         B: LimbSource + ?Sized,
     {
         match self.work(a, b, timer) {
-            Ok(len) => Ok(Product::Disk { store: self.s, len }),
+            Ok(len) => {
+                // The journal no longer names them: the residue and row
+                // stores are truncated while the product is written.
+                let mut given_back = self.a;
+                given_back.push(self.p);
+                Ok(Product::Disk {
+                    store: self.s,
+                    len,
+                    discarding: Discarding::start(given_back)?,
+                })
+            }
             Err(e) => {
                 // The error is what matters; a failing sync here only means
                 // the rerun recomputes more.
@@ -581,10 +591,11 @@ impl<'a> OutOfCore<'a> {
     }
 
     /// Once the limbs are in `s`, the residue and row stores are no longer
-    /// read: their records are dropped from the journal and the files
-    /// truncated, so that their pages are not written back to the disk
-    /// while the product is written, and their space is free for it. A
-    /// resume that then finds `s` damaged starts over.
+    /// read: their records are dropped from the journal, and then
+    /// ([`OutOfCore::run`]) the files are truncated, so that their pages
+    /// are not written back to the disk while the product is written, and
+    /// their space is free for it. A resume that then finds `s` damaged
+    /// starts over.
     fn release_transforms(&mut self) -> Result<()> {
         if let Some(j) = self.journal {
             self.absorb();
@@ -596,9 +607,6 @@ impl<'a> OutOfCore<'a> {
                 .collect();
             kept.sort_by_key(|r| r.block);
             j.rewrite(&kept)?;
-        }
-        for s in self.a.iter().chain([&self.p]) {
-            s.discard()?;
         }
         Ok(())
     }

@@ -40,26 +40,87 @@ pub const PAIR_BYTES: usize = 13;
 
 const MASK: u64 = (1 << PACKED_BITS) - 1;
 
+/// Words in a run: 16 words of 52 bits fill 13 whole 64-bit words, so
+/// a run packs with constant shifts and no byte-by-byte work.
+const RUN_WORDS: usize = 16;
+const RUN_BYTES: usize = RUN_WORDS / 2 * PAIR_BYTES;
+
+/// Where word `i` of a run starts: which 64-bit word, which bit.
+const fn bit_of(i: usize) -> (usize, u32) {
+    let bit = i * PACKED_BITS as usize;
+    (bit / 64, (bit % 64) as u32)
+}
+
+/// Runs `$body` with `$i` bound to each word index of a run, as
+/// constants, so that every shift is fixed at compile time.
+macro_rules! each_word_of_run {
+    ($i:ident => $body:block) => {
+        each_word_of_run!(@ $i $body; 0 1 2 3 4 5 6 7 8 9 10 11 12 13 14 15)
+    };
+    (@ $i:ident $body:block; $($n:literal)*) => {
+        $({
+            const $i: usize = $n;
+            $body
+        })*
+    };
+}
+
+/// One run: the packed layout is a little-endian stream of 52-bit words,
+/// the same as pair after pair.
+#[inline(always)]
+fn pack_run(w: &[u64; RUN_WORDS], out: &mut [u8; RUN_BYTES]) -> u64 {
+    let mut acc = [0u64; RUN_BYTES / 8];
+    each_word_of_run!(I => {
+        let (j, s) = bit_of(I);
+        acc[j] |= w[I] << s;
+        // A word starting past bit 12 reaches into the next 64-bit word.
+        if s > 64 - PACKED_BITS {
+            acc[j + 1] |= w[I] >> (64 - s);
+        }
+    });
+    for (o, a) in out.chunks_exact_mut(8).zip(acc) {
+        o.copy_from_slice(&a.to_le_bytes());
+    }
+    w.iter().fold(0, |h, &x| h | x)
+}
+
+#[inline(always)]
+fn unpack_run(bytes: &[u8; RUN_BYTES], out: &mut [u64; RUN_WORDS]) {
+    let mut acc = [0u64; RUN_BYTES / 8];
+    for (a, b) in acc.iter_mut().zip(bytes.chunks_exact(8)) {
+        *a = u64::from_le_bytes(b.try_into().unwrap());
+    }
+    each_word_of_run!(I => {
+        let (j, s) = bit_of(I);
+        let mut v = acc[j] >> s;
+        if s > 64 - PACKED_BITS {
+            v |= acc[j + 1] << (64 - s);
+        }
+        out[I] = v & MASK;
+    });
+}
+
 /// Packs `words` (an even count) into `out` (`PAIR_BYTES` per pair).
 /// Returns false, with `out` partly written, if a word is 2^52 or more.
 pub fn pack(words: &[u64], out: &mut [u8]) -> bool {
     assert!(words.len().is_multiple_of(2), "packing whole pairs only");
     let pairs = words.len() / 2;
     assert!(out.len() >= pairs * PAIR_BYTES, "packed output too short");
+    let runs = words.len() / RUN_WORDS;
     let mut high = 0u64;
-    // All but the last pair store 16 bytes at once (one unaligned store);
-    // the three bytes past the pair are overwritten by the next one.
-    let fast = pairs.saturating_sub(1);
-    for (i, w) in words.chunks_exact(2).take(fast).enumerate() {
-        high |= w[0] | w[1];
-        let v = w[0] as u128 | (w[1] as u128) << PACKED_BITS;
-        out[i * PAIR_BYTES..i * PAIR_BYTES + 16].copy_from_slice(&v.to_le_bytes());
+    for (w, o) in words
+        .chunks_exact(RUN_WORDS)
+        .zip(out.chunks_exact_mut(RUN_BYTES))
+    {
+        high |= pack_run(w.try_into().unwrap(), o.try_into().unwrap());
     }
-    if pairs > 0 {
-        let w = &words[2 * fast..];
+    // The pairs after the last whole run.
+    let words = &words[runs * RUN_WORDS..];
+    let out = &mut out[runs * RUN_BYTES..];
+    for (i, w) in words.chunks_exact(2).enumerate() {
         high |= w[0] | w[1];
         let v = w[0] as u128 | (w[1] as u128) << PACKED_BITS;
-        out[fast * PAIR_BYTES..pairs * PAIR_BYTES].copy_from_slice(&v.to_le_bytes()[..PAIR_BYTES]);
+        out[i * PAIR_BYTES..(i + 1) * PAIR_BYTES].copy_from_slice(&v.to_le_bytes()[..PAIR_BYTES]);
     }
     high >> PACKED_BITS == 0
 }
@@ -69,27 +130,21 @@ pub fn unpack(bytes: &[u8], out: &mut [u64]) {
     assert!(out.len().is_multiple_of(2), "unpacking whole pairs only");
     let pairs = out.len() / 2;
     assert!(bytes.len() >= pairs * PAIR_BYTES, "packed input too short");
-    // A 16-byte load may reach past the last pair: only where the slice
-    // has those bytes is it taken.
-    let fast = if bytes.len() >= pairs * PAIR_BYTES + 3 {
-        pairs
-    } else {
-        pairs.saturating_sub(1)
-    };
-    for (i, w) in out.chunks_exact_mut(2).take(fast).enumerate() {
-        let b: [u8; 16] = bytes[i * PAIR_BYTES..i * PAIR_BYTES + 16]
-            .try_into()
-            .unwrap();
-        let v = u128::from_le_bytes(b);
-        w[0] = v as u64 & MASK;
-        w[1] = (v >> PACKED_BITS) as u64 & MASK;
+    let runs = out.len() / RUN_WORDS;
+    for (b, o) in bytes
+        .chunks_exact(RUN_BYTES)
+        .zip(out.chunks_exact_mut(RUN_WORDS))
+    {
+        unpack_run(b.try_into().unwrap(), o.try_into().unwrap());
     }
-    for i in fast..pairs {
+    let bytes = &bytes[runs * RUN_BYTES..];
+    let out = &mut out[runs * RUN_WORDS..];
+    for (i, w) in out.chunks_exact_mut(2).enumerate() {
         let mut b = [0u8; 16];
         b[..PAIR_BYTES].copy_from_slice(&bytes[i * PAIR_BYTES..(i + 1) * PAIR_BYTES]);
         let v = u128::from_le_bytes(b);
-        out[2 * i] = v as u64 & MASK;
-        out[2 * i + 1] = (v >> PACKED_BITS) as u64 & MASK;
+        w[0] = v as u64 & MASK;
+        w[1] = (v >> PACKED_BITS) as u64 & MASK;
     }
 }
 
@@ -121,13 +176,36 @@ mod tests {
         }
     }
 
+    /// The layout stores of earlier runs hold: word `k` at bits
+    /// `52k .. 52k + 52` of a little-endian byte stream, written bit by bit.
+    #[test]
+    fn layout_is_a_little_endian_stream_of_52_bit_words() {
+        let mut rng = Rng::new(53);
+        for n in [2, 14, 16, 18, 32, 46, 64] {
+            let words: Vec<u64> = (0..n).map(|_| rng.next_u64() & MASK).collect();
+            let mut expected = vec![0u8; n / 2 * PAIR_BYTES];
+            for (k, &w) in words.iter().enumerate() {
+                for bit in 0..PACKED_BITS as usize {
+                    if w >> bit & 1 == 1 {
+                        let at = k * PACKED_BITS as usize + bit;
+                        expected[at / 8] |= 1 << (at % 8);
+                    }
+                }
+            }
+            let mut bytes = vec![0u8; expected.len()];
+            assert!(pack(&words, &mut bytes));
+            assert_eq!(bytes, expected, "n = {n}");
+        }
+    }
+
     #[test]
     fn refuses_words_of_52_bits_or_more() {
         for bad in [1u64 << 52, u64::MAX, MASK + 1] {
-            for at in 0..6 {
-                let mut words = vec![7u64; 6];
+            // In a whole run and in the pairs after it.
+            for at in 0..22 {
+                let mut words = vec![7u64; 22];
                 words[at] = bad;
-                let mut bytes = vec![0u8; 3 * PAIR_BYTES];
+                let mut bytes = vec![0u8; 11 * PAIR_BYTES];
                 assert!(!pack(&words, &mut bytes), "{bad:#x} at {at}");
             }
         }

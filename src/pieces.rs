@@ -225,6 +225,7 @@ where
             Product::Disk {
                 store: Box::new(store),
                 len: first + significant,
+                discarding: Default::default(),
             }
         }
     })

@@ -10,7 +10,7 @@ use std::sync::atomic::{AtomicU64, Ordering};
 
 /// A fixed-length array of 64-bit words that many threads may read and write
 /// concurrently, each thread touching its own ranges.
-pub trait Store: Sync {
+pub trait Store: Send + Sync {
     /// Length in words.
     fn len(&self) -> usize;
 
@@ -41,6 +41,63 @@ pub trait Store: Sync {
     fn discard(&self) -> Result<()> {
         Ok(())
     }
+}
+
+/// Stores being given back on a thread of their own. Truncating a large
+/// scratch file waits on the disk (a file system that discards freed
+/// blocks does so before the call returns), so it runs beside whatever
+/// comes next, such as writing the product, instead of before it.
+#[derive(Default)]
+pub struct Discarding(Option<std::thread::JoinHandle<Result<()>>>);
+
+impl Discarding {
+    /// Discards `stores` one after another on a new thread, then drops
+    /// them there. Where no thread can be started, it does so now.
+    pub fn start(stores: Vec<Box<dyn Store>>) -> Result<Discarding> {
+        let shared = std::sync::Arc::new(std::sync::Mutex::new(Some(stores)));
+        let theirs = shared.clone();
+        let spawned = std::thread::Builder::new()
+            .name("vastmul-release".into())
+            .spawn(move || match theirs.lock().unwrap().take() {
+                Some(stores) => discard_all(stores),
+                None => Ok(()),
+            });
+        match spawned {
+            Ok(handle) => Ok(Discarding(Some(handle))),
+            Err(_) => match shared.lock().unwrap().take() {
+                Some(stores) => discard_all(stores).map(|()| Discarding(None)),
+                None => Ok(Discarding(None)),
+            },
+        }
+    }
+
+    /// Waits until every store is given back; the first failure, if any.
+    pub fn wait(&mut self) -> Result<()> {
+        match self.0.take() {
+            Some(handle) => handle
+                .join()
+                .unwrap_or_else(|panic| std::panic::resume_unwind(panic)),
+            None => Ok(()),
+        }
+    }
+}
+
+impl Drop for Discarding {
+    /// A run that stops early still waits for its scratch to be given back
+    /// (the files belong to its state), but its own error is what it
+    /// reports.
+    fn drop(&mut self) {
+        if let Some(handle) = self.0.take() {
+            let _ = handle.join();
+        }
+    }
+}
+
+fn discard_all(stores: Vec<Box<dyn Store>>) -> Result<()> {
+    for s in &stores {
+        s.discard()?;
+    }
+    Ok(())
 }
 
 impl<S: Store + ?Sized> Store for Box<S> {

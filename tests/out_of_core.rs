@@ -32,7 +32,7 @@ fn ooc_multiply(a: &[u64], b: &[u64], radix: Radix, memory: u64, dir: &Path) -> 
     assert!(p.ram_bytes <= memory);
     let product = execute_to(&p, a, b, dir).expect("out-of-core product");
     let limbs = match &product {
-        Product::Disk { store, len } => {
+        Product::Disk { store, len, .. } => {
             let mut v = vec![0u64; *len];
             store.read(0, &mut v).unwrap();
             v

@@ -39,7 +39,7 @@ fn by_pieces(a: &[u64], b: &[u64], radix: Radix, force: Force, memory: u64) -> (
             assert!(!product_on_disk);
             w.to_vec()
         }
-        Product::Disk { store, len } => {
+        Product::Disk { store, len, .. } => {
             assert!(product_on_disk);
             let mut v = vec![0u64; *len];
             store.read(0, &mut v).unwrap();

@@ -320,7 +320,14 @@ fn run_tiny(
     };
     let (run, _) = OutOfCore::open(p, (shape, window), space, Some(&journal), &load.records)?;
     match run.run(a, b, &mut Timer::default())? {
-        Product::Disk { store, len } => {
+        Product::Disk {
+            store,
+            len,
+            mut discarding,
+        } => {
+            // A failure while the other stores are given back fails the
+            // run, as in `multiply_files`.
+            discarding.wait()?;
             let mut v = vec![0u64; len];
             store.read(0, &mut v)?;
             Ok(v)
