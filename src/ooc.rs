@@ -172,11 +172,11 @@ impl<'a> OutOfCore<'a> {
             reused &= was;
             Ok(s)
         };
-        // `s` ends up holding the product's limbs: full words.
         let residues = crate::plan::residue_width(plan.prime_set, shape);
         let a = (0..plan.prime_set.count())
             .map(|k| open(&format!("a{k}"), n, residues))
             .collect::<Result<Vec<_>>>()?;
+        // `s` ends up holding the product's limbs: full words.
         let s = open("s", n.max(plan.product_limbs), WordWidth::Full)?;
         let p = open("p", n, residues)?;
         let mut done: Done = HashMap::new();

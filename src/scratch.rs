@@ -110,7 +110,7 @@ impl Drop for FileStore {
 const PACK_CHUNK_PAIRS: usize = 1 << 15;
 
 /// Bytes of the per-thread buffer of packed stores, for the planner.
-pub const PACK_BUFFER_BYTES: u64 = (PACK_CHUNK_PAIRS * PAIR_BYTES + 16) as u64;
+pub const PACK_BUFFER_BYTES: u64 = (PACK_CHUNK_PAIRS * PAIR_BYTES) as u64;
 
 thread_local! {
     static PACKED: RefCell<Vec<u8>> = const { RefCell::new(Vec::new()) };
@@ -205,8 +205,7 @@ impl FileStore {
             for (i, chunk) in data[..whole].chunks(2 * PACK_CHUNK_PAIRS).enumerate() {
                 let first = start + i * 2 * PACK_CHUNK_PAIRS;
                 let bytes = chunk.len() / 2 * PAIR_BYTES;
-                // Room for the packer's 16-byte stores past the last pair.
-                buf.resize((bytes + 16).max(buf.len()), 0);
+                buf.resize(bytes.max(buf.len()), 0);
                 self.pack_checked(chunk, &mut buf[..], first)?;
                 self.file
                     .write_all_at(&buf[..bytes], (first / 2 * PAIR_BYTES) as u64)

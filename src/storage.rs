@@ -57,7 +57,7 @@ impl Discarding {
         let shared = std::sync::Arc::new(std::sync::Mutex::new(Some(stores)));
         let theirs = shared.clone();
         let spawned = std::thread::Builder::new()
-            .name("vastmul-release".into())
+            .name("vastmul-discard".into())
             .spawn(move || match theirs.lock().unwrap().take() {
                 Some(stores) => discard_all(stores),
                 None => Ok(()),
